@@ -1,0 +1,187 @@
+"""Command line: a thin Typer app over :mod:`planner.pipeline`.
+
+Each command parses its options, makes one library call and prints. Exit codes: 0 ok, 2 bad
+input (one message per problem), 1 internal error (short message; ``--debug`` shows the
+traceback).
+"""
+from __future__ import annotations
+
+import json
+import sys
+from pathlib import Path
+from typing import Callable, Optional
+
+import typer
+from rich.console import Console
+from rich.table import Table
+
+from planner import __version__
+from planner.errors import InputError, PlannerError
+
+app = typer.Typer(
+    add_completion=False,
+    no_args_is_help=True,
+    help="Cash replenishment planner: visit days and loads for cash machines, from dispense "
+         "history to a costed plan.",
+)
+console = Console(stderr=False, highlight=False)
+errors = Console(stderr=True, highlight=False)
+
+SCENARIO_HELP = ("Scenario folder (scenario.toml, terminals.csv, depots.csv, dispense.csv, "
+                 "optional committed.csv). Default: the bundled demo network.")
+
+
+def _version(value: bool) -> None:
+    if value:
+        console.print(f"planner {__version__}")
+        raise typer.Exit()
+
+
+@app.callback()
+def main(
+    version: bool = typer.Option(False, "--version", callback=_version, is_eager=True,
+                                 help="Print the version and exit."),
+) -> None:
+    """Cash replenishment planner."""
+
+
+def _run(debug: bool, action: Callable[[], int | None]) -> None:
+    """Run one library call, mapping our errors to exit codes and clear messages."""
+    try:
+        code = action()
+    except InputError as exc:
+        errors.print(f"[bold]Input problem{'s' if len(exc.problems) > 1 else ''} "
+                     f"({len(exc.problems)}):[/bold]")
+        for p in exc.problems:
+            errors.print(f"  - {p}", markup=False)
+        raise typer.Exit(2)
+    except PlannerError as exc:
+        errors.print(f"Error: {exc}", markup=False)
+        raise typer.Exit(1)
+    except (KeyboardInterrupt, typer.Exit):
+        raise
+    except Exception as exc:  # noqa: BLE001 - the last line of defence for users
+        if debug:
+            raise
+        errors.print(f"Internal error: {type(exc).__name__}: {exc}", markup=False)
+        errors.print("Rerun with --debug to see the traceback, and report it with the "
+                     "scenario folder if you can.")
+        raise typer.Exit(1)
+    if code:
+        raise typer.Exit(code)
+
+
+def _scenario_path(scenario: Optional[Path]) -> Path:
+    from planner.demo import demo_path
+
+    return scenario if scenario is not None else demo_path()
+
+
+def _print_warnings(warnings: tuple[str, ...] | list[str], quiet: bool) -> None:
+    if quiet:
+        return
+    for w in warnings:
+        errors.print(f"[yellow]notice[/yellow] {w}", markup=True, highlight=False)
+
+
+def _frame_table(frame, title: str, max_rows: int = 200) -> Table:
+    table = Table(title=title, title_justify="left")
+    for col in frame.columns:
+        table.add_column(str(col), justify="right" if frame[col].dtype.kind in "iuf" else "left")
+    for _, row in frame.head(max_rows).iterrows():
+        table.add_row(*[_cell(v) for v in row])
+    return table
+
+
+def _cell(v) -> str:
+    import pandas as pd
+
+    if isinstance(v, float):
+        return f"{v:,.3f}" if abs(v) < 10 else f"{v:,.0f}"
+    if isinstance(v, pd.Timestamp):
+        return f"{v:%Y-%m-%d}"
+    return str(v)
+
+
+# ---------------------------------------------------------------------------------------------
+
+
+@app.command()
+def check(
+    scenario: Optional[Path] = typer.Argument(None, help=SCENARIO_HELP, show_default=False),
+    as_json: bool = typer.Option(False, "--json", help="Print the data-quality table as JSON."),
+    debug: bool = typer.Option(False, "--debug", help="Show tracebacks of internal errors."),
+) -> None:
+    """Validate a scenario folder and print a data-quality table per terminal."""
+
+    def action() -> None:
+        from planner.pipeline import check_scenario
+
+        result = check_scenario(_scenario_path(scenario))
+        if as_json:
+            console.print_json(json.dumps({
+                "scenario": result.scenario.name,
+                "warnings": list(result.scenario.warnings),
+                "terminals": json.loads(result.quality.to_json(orient="records",
+                                                               date_format="iso")),
+                "network": result.network,
+            }))
+            return
+        _print_warnings(result.scenario.warnings, False)
+        console.print(_frame_table(result.quality, f"Data quality — {result.scenario.name}"))
+        console.print(_frame_table(result.network_frame(), "Network totals"))
+        console.print("[green]Scenario is valid.[/green]")
+
+    _run(debug, action)
+
+
+@app.command()
+def plan(
+    scenario: Optional[Path] = typer.Argument(None, help=SCENARIO_HELP, show_default=False),
+    out: Path = typer.Option(Path("runs/plan"), "--out", "-o",
+                             help="Run folder to write (replaced whole if it exists)."),
+    horizon: Optional[int] = typer.Option(None, "--horizon", min=1,
+                                          help="Planning horizon in days [default: the "
+                                               "scenario's planning.horizon_days]."),
+    paths: Optional[int] = typer.Option(None, "--paths", min=1,
+                                        help="Number of demand paths [default: the scenario's "
+                                             "paths.count]."),
+    seed: Optional[int] = typer.Option(None, "--seed",
+                                       help="Random seed for the demand paths [default: the "
+                                            "scenario's paths.seed]."),
+    jobs: int = typer.Option(1, "--jobs", "-j", min=1,
+                             help="Parallel processes for forecasting."),
+    time_limit: float = typer.Option(60.0, "--time-limit", min=1.0,
+                                     help="Solver time limit in seconds."),
+    quiet: bool = typer.Option(False, "--quiet", "-q", help="Print only errors."),
+    as_json: bool = typer.Option(False, "--json", help="Print the summary as JSON."),
+    debug: bool = typer.Option(False, "--debug", help="Show tracebacks of internal errors."),
+) -> None:
+    """Forecast demand, plan visits and loads, and write the run folder (plan.csv, orders.csv,
+    summary.json)."""
+
+    def action() -> None:
+        from planner.pipeline import PlanOptions, run_plan
+
+        options = PlanOptions(horizon_days=horizon, path_count=paths, seed=seed, jobs=jobs,
+                              time_limit_s=time_limit)
+        result = run_plan(_scenario_path(scenario), out, options=options,
+                          progress=not (quiet or as_json))
+        if as_json:
+            console.print_json(json.dumps(result.summary, default=str))
+            return
+        if quiet:
+            return
+        _print_warnings(result.scenario.warnings, quiet)
+        console.print(_frame_table(result.summary_frame(), "Plan summary"))
+        console.print(f"Run folder written: [bold]{result.run_folder}[/bold]")
+
+    _run(debug, action)
+
+
+def run() -> None:  # pragma: no cover - console entry for `python -m planner`
+    app()
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(app())

@@ -1,0 +1,235 @@
+"""Scenario → run folder: the one pipeline function that the CLI and the Python API call.
+
+The stages read top to bottom (DESIGN §4): load → clean → forecast → paths → optimize →
+evaluate → report. Each stage takes data and returns data; nothing is kept between calls.
+"""
+from __future__ import annotations
+
+import platform
+from dataclasses import dataclass, field, replace
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from planner import __version__
+from planner.scenario import Scenario, load_scenario
+
+TAIL_DAYS = 7  # extra planned days that value the end of the horizon fairly (DESIGN §4)
+
+
+@dataclass(frozen=True)
+class PlanOptions:
+    """Overrides of the scenario's settings for one run (None keeps the scenario's value)."""
+
+    horizon_days: int | None = None
+    path_count: int | None = None
+    seed: int | None = None
+    jobs: int = 1
+    time_limit_s: float = 60.0
+    tail_days: int = TAIL_DAYS
+    origins: int = 8
+
+
+@dataclass(frozen=True)
+class CheckResult:
+    """Outcome of ``planner check``: the validated scenario and its data-quality table.
+
+    ``quality``: one row per terminal (terminal_id, depot, days, gaps, down, dry, outliers,
+    first, last, mean_daily in currency units); ``network``: totals over all terminals.
+    """
+
+    scenario: Scenario
+    quality: pd.DataFrame
+    network: dict[str, Any]
+
+    def network_frame(self) -> pd.DataFrame:
+        return pd.DataFrame([self.network])
+
+
+def check_scenario(path: str | Path | Scenario) -> CheckResult:
+    """Load and validate a scenario and describe the quality of its history."""
+    from planner.cleaning import clean_history
+
+    scenario = path if isinstance(path, Scenario) else load_scenario(path)
+    clean = clean_history(scenario)
+    quality = clean.summary.reset_index()
+    if "terminal_id" not in quality.columns:
+        quality = quality.rename(columns={quality.columns[0]: "terminal_id"})
+    quality.insert(1, "depot", quality["terminal_id"].map(scenario.terminals["depot"]))
+    counts = [c for c in ("days", "gaps", "down", "dry", "outliers") if c in quality.columns]
+    network = {"terminals": int(len(scenario.terminals)),
+               "depots": int(len(scenario.depots)),
+               **{c: int(quality[c].sum()) for c in counts},
+               "first": f"{scenario.dispense['date'].min():%Y-%m-%d}",
+               "last": f"{scenario.dispense['date'].max():%Y-%m-%d}",
+               "first_planning_day": f"{scenario.start_date:%Y-%m-%d}"}
+    return CheckResult(scenario, quality, network)
+
+
+@dataclass(frozen=True)
+class PlanRun:
+    """Everything one planning run produced (frames documented in the README, 'Outputs').
+
+    - ``plan``: one row per visit in the horizon (terminal_id, depot, date, load,
+      expected_residual, dry_probability, reason).
+    - ``orders``: cash per depot and day (depot, date, visits, load_total, expected_return).
+    - ``costs``: expected cost parts per terminal (currency units over horizon + tail days).
+    - ``paths``: demand paths [terminal, path, day] over ``dates``.
+    - ``summary``: the content of ``summary.json``.
+    """
+
+    scenario: Scenario
+    options: PlanOptions
+    clean: Any
+    forecast: Any
+    problem: Any
+    result: Any
+    plan: pd.DataFrame
+    orders: pd.DataFrame
+    costs: pd.DataFrame
+    summary: dict[str, Any]
+    run_folder: Path | None = None
+
+    @property
+    def paths(self) -> np.ndarray:
+        return self.forecast.paths
+
+    def summary_frame(self) -> pd.DataFrame:
+        s = self.summary
+        rows = [
+            ("terminals", s["network"]["terminals"]),
+            ("visits planned in horizon", s["network"]["visits"]),
+            ("cash to load", s["network"]["load_total"]),
+            ("expected cost (horizon + tail)", s["costs"]["total"]),
+            ("terminals over dry-risk target", s["service"]["terminals_over_target"]),
+            ("solver status", s["solver"]["status"]),
+            ("optimality gap", s["solver"]["gap"]),
+        ]
+        return pd.DataFrame(rows, columns=["figure", "value"])
+
+
+def _apply_options(scenario: Scenario, options: PlanOptions) -> Scenario:
+    changes: dict[str, Any] = {}
+    if options.horizon_days is not None:
+        changes["horizon_days"] = int(options.horizon_days)
+    if options.path_count is not None:
+        changes["path_count"] = int(options.path_count)
+    if options.seed is not None:
+        changes["seed"] = int(options.seed)
+    return replace(scenario, **changes) if changes else scenario
+
+
+def plan_scenario(source: str | Path | Scenario, *, options: PlanOptions | None = None,
+                  progress: bool = False, **overrides: Any) -> PlanRun:
+    """Plan visits and loads for a scenario; returns every stage's result, writes nothing.
+
+    ``overrides`` are fields of :class:`PlanOptions` (``horizon_days=21, seed=3, jobs=2`` …).
+    Raises :class:`~planner.errors.InputError` on malformed input.
+    """
+    from planner.cleaning import clean_history
+    from planner.forecast import forecast_scenario
+    from planner.optimize import build_problem, orders_frame, plan_frame, solve_plan
+
+    options = replace(options or PlanOptions(), **overrides)
+    scenario = source if isinstance(source, Scenario) else load_scenario(source)
+    scenario = _apply_options(scenario, options)
+
+    clean = clean_history(scenario)
+    forecast = forecast_scenario(scenario, clean,
+                                 horizon_days=scenario.horizon_days + options.tail_days,
+                                 path_count=scenario.path_count, seed=scenario.seed,
+                                 jobs=options.jobs, origins=options.origins)
+    problem = build_problem(scenario, forecast.paths, forecast.dates,
+                            tail_days=options.tail_days)
+    result = solve_plan(problem, time_limit_s=options.time_limit_s)
+    plan = plan_frame(problem, result)
+    orders = orders_frame(problem, result)
+    costs = result.ledger.parts()
+    costs.insert(0, "terminal_id", list(problem.terminal_ids))
+    summary = _summary(scenario, options, forecast, problem, result, plan, costs)
+    return PlanRun(scenario, options, clean, forecast, problem, result, plan, orders, costs,
+                   summary)
+
+
+def run_plan(source: str | Path | Scenario, out_dir: str | Path, *,
+             options: PlanOptions | None = None, progress: bool = False) -> PlanRun:
+    """Plan a scenario and write its run folder atomically (owner-only permissions)."""
+    from planner.runfolder import RunFolderWriter
+
+    run = plan_scenario(source, options=options, progress=progress)
+    with RunFolderWriter(Path(out_dir)) as writer:
+        writer.write_csv("plan.csv", _rounded(run.plan))
+        writer.write_csv("orders.csv", _rounded(run.orders))
+        writer.write_csv("costs.csv", _rounded(run.costs))
+        writer.write_json("summary.json", run.summary)
+    return replace(run, run_folder=Path(out_dir))
+
+
+def _rounded(frame: pd.DataFrame) -> pd.DataFrame:
+    """Round floats for stable, readable CSV (cents for money, 4 places for probabilities)."""
+    out = frame.copy()
+    for col in out.columns:
+        if out[col].dtype.kind == "f":
+            out[col] = out[col].round(4 if "probability" in col else 2)
+        elif out[col].dtype.kind == "M":
+            out[col] = out[col].dt.strftime("%Y-%m-%d")
+    return out
+
+
+def _versions() -> dict[str, str]:
+    import importlib.metadata as md
+
+    out = {"planner": __version__, "python": platform.python_version()}
+    for pkg in ("numpy", "pandas", "scipy", "statsmodels", "pulp", "highspy"):
+        try:
+            out[pkg] = md.version(pkg)
+        except md.PackageNotFoundError:
+            out[pkg] = "not installed"
+    return out
+
+
+def _summary(scenario: Scenario, options: PlanOptions, forecast: Any, problem: Any,
+             result: Any, plan: pd.DataFrame, costs: pd.DataFrame) -> dict[str, Any]:
+    target = scenario.max_dry_probability
+    dry = np.asarray(result.dry_probability, dtype=float)
+    per_terminal = []
+    for i, tid in enumerate(problem.terminal_ids):
+        row = {k: (round(float(v), 2) if isinstance(v, (float, np.floating)) else v)
+               for k, v in costs.iloc[i].items()}
+        row["dry_probability"] = round(float(dry[i]), 4)
+        row["note"] = result.notes[i] if result.notes is not None else ""
+        per_terminal.append(row)
+    parts = [c for c in costs.columns if c != "terminal_id"]
+    return {
+        "scenario": scenario.name,
+        "currency": scenario.currency,
+        "first_planning_day": f"{scenario.start_date:%Y-%m-%d}",
+        "horizon_days": scenario.horizon_days,
+        "tail_days": options.tail_days,
+        "replenishment": scenario.replenishment,
+        "paths": {"count": scenario.path_count, "seed": scenario.seed},
+        "input_fingerprint": scenario.fingerprint,
+        "versions": _versions(),
+        "method": "sample average approximation over demand paths; visit patterns priced "
+                  "exactly per terminal, network assignment under crew limits",
+        "network": {"terminals": len(problem.terminal_ids), "visits": int(len(plan)),
+                    "load_total": round(float(plan["load"].sum()), 2)},
+        "costs": {p: round(float(costs[p].sum()), 2) for p in parts},
+        "service": {
+            "max_dry_probability": target,
+            "terminals_over_target": int((dry > target + 1e-12).sum()),
+            "worst_dry_probability": round(float(dry.max()) if dry.size else 0.0, 4),
+        },
+        "solver": {"status": result.status, "name": result.solver,
+                   "objective": round(float(result.objective), 2),
+                   "bound": round(float(result.bound), 2),
+                   "gap": round(float(result.gap), 6), "time_s": round(float(result.time_s), 2)},
+        "forecast": {
+            "champions": forecast.champion["model"].value_counts().sort_index().to_dict(),
+            "fallbacks": list(forecast.fallbacks),
+        },
+        "terminals": per_terminal,
+        "warnings": list(scenario.warnings),
+    }
