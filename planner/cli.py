@@ -108,7 +108,8 @@ def _cell(v) -> str:
 
 @app.command()
 def check(
-    scenario: Optional[Path] = typer.Argument(None, help=SCENARIO_HELP, show_default=False),
+    scenario: Optional[Path] = typer.Argument(None, help=SCENARIO_HELP, show_default=False,
+                                            metavar="SCENARIO"),
     as_json: bool = typer.Option(False, "--json", help="Print the data-quality table as JSON."),
     debug: bool = typer.Option(False, "--debug", help="Show tracebacks of internal errors."),
 ) -> None:
@@ -137,18 +138,19 @@ def check(
 
 @app.command()
 def plan(
-    scenario: Optional[Path] = typer.Argument(None, help=SCENARIO_HELP, show_default=False),
+    scenario: Optional[Path] = typer.Argument(None, help=SCENARIO_HELP, show_default=False,
+                                            metavar="SCENARIO"),
     out: Path = typer.Option(Path("runs/plan"), "--out", "-o",
                              help="Run folder to write (replaced whole if it exists)."),
     horizon: Optional[int] = typer.Option(None, "--horizon", min=1,
                                           help="Planning horizon in days [default: the "
-                                               "scenario's planning.horizon_days]."),
+                                               "scenario's planning.horizon_days)."),
     paths: Optional[int] = typer.Option(None, "--paths", min=1,
-                                        help="Number of demand paths [default: the scenario's "
-                                             "paths.count]."),
+                                        help="Number of demand paths (default: the scenario's "
+                                             "paths.count)."),
     seed: Optional[int] = typer.Option(None, "--seed",
                                        help="Random seed for the demand paths [default: the "
-                                            "scenario's paths.seed]."),
+                                            "scenario's paths.seed)."),
     jobs: int = typer.Option(1, "--jobs", "-j", min=1,
                              help="Parallel processes for forecasting."),
     time_limit: float = typer.Option(60.0, "--time-limit", min=1.0,
@@ -174,6 +176,84 @@ def plan(
             return
         _print_warnings(result.scenario.warnings, quiet)
         console.print(_frame_table(result.summary_frame(), "Plan summary"))
+        console.print(f"Run folder written: [bold]{result.run_folder}[/bold]")
+
+    _run(debug, action)
+
+
+@app.command()
+def forecast(
+    scenario: Optional[Path] = typer.Argument(None, help=SCENARIO_HELP, show_default=False,
+                                            metavar="SCENARIO"),
+    out: Path = typer.Option(Path("runs/forecast"), "--out", "-o",
+                             help="Run folder to write (replaced whole if it exists)."),
+    horizon: Optional[int] = typer.Option(None, "--horizon", min=1,
+                                          help="Forecast horizon in days [default: the "
+                                               "scenario's planning.horizon_days)."),
+    paths: Optional[int] = typer.Option(None, "--paths", min=1,
+                                        help="Number of demand paths (default: the scenario's "
+                                             "paths.count)."),
+    seed: Optional[int] = typer.Option(None, "--seed", help="Random seed for the demand paths "
+                                                            "(default: the scenario's "
+                                                            "paths.seed)."),
+    origins: int = typer.Option(8, "--origins", min=1,
+                                help="Weekly backtest origins used to choose each terminal's "
+                                     "model."),
+    jobs: int = typer.Option(1, "--jobs", "-j", min=1, help="Parallel processes."),
+    quiet: bool = typer.Option(False, "--quiet", "-q", help="Print only errors."),
+    as_json: bool = typer.Option(False, "--json", help="Print the accuracy table as JSON."),
+    debug: bool = typer.Option(False, "--debug", help="Show tracebacks of internal errors."),
+) -> None:
+    """Forecast demand per terminal: accuracy by model from a rolling-origin backtest, the
+    champion per terminal, and forecasts (written to the run folder)."""
+
+    def action() -> None:
+        from planner.pipeline import PlanOptions, run_forecast
+
+        options = PlanOptions(horizon_days=horizon, path_count=paths, seed=seed, jobs=jobs,
+                              origins=origins, tail_days=0)
+        result = run_forecast(_scenario_path(scenario), out, options=options)
+        if as_json:
+            console.print_json(result.by_model.to_json(orient="records"))
+            return
+        if quiet:
+            return
+        _print_warnings(result.scenario.warnings, quiet)
+        console.print(_frame_table(result.by_model, "Forecast accuracy by model "
+                                                    "(median over terminals)"))
+        console.print(_frame_table(result.champions, "Champions"))
+        console.print(f"Run folder written: [bold]{result.run_folder}[/bold]")
+
+    _run(debug, action)
+
+
+@app.command()
+def diagnose(
+    scenario: Optional[Path] = typer.Argument(None, help=SCENARIO_HELP, show_default=False,
+                                            metavar="SCENARIO"),
+    terminal: Optional[list[str]] = typer.Option(None, "--terminal", "-t",
+                                                 help="Terminal id to diagnose (repeatable) "
+                                                      "(default: all terminals)."),
+    out: Path = typer.Option(Path("runs/diagnose"), "--out", "-o",
+                             help="Run folder to write (replaced whole if it exists)."),
+    quiet: bool = typer.Option(False, "--quiet", "-q", help="Print only errors."),
+    as_json: bool = typer.Option(False, "--json", help="Print the test table as JSON."),
+    debug: bool = typer.Option(False, "--debug", help="Show tracebacks of internal errors."),
+) -> None:
+    """Statistical diagnostics per terminal: descriptive statistics, ADF and KPSS, ACF and
+    PACF, periodogram, and residual tests (Ljung-Box, Durbin-Watson, Breusch-Godfrey) of the
+    champion model; tables and one chart page per terminal."""
+
+    def action() -> None:
+        from planner.pipeline import run_diagnose
+
+        result = run_diagnose(_scenario_path(scenario), out, terminal_ids=terminal or None)
+        if as_json:
+            console.print_json(result.tests.to_json(orient="records"))
+            return
+        if quiet:
+            return
+        console.print(_frame_table(result.tests, "Diagnostics"))
         console.print(f"Run folder written: [bold]{result.run_folder}[/bold]")
 
     _run(debug, action)

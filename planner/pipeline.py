@@ -233,3 +233,124 @@ def _summary(scenario: Scenario, options: PlanOptions, forecast: Any, problem: A
         "terminals": per_terminal,
         "warnings": list(scenario.warnings),
     }
+
+
+# ---------------------------------------------------------------------------------------------
+# Forecast only, and diagnostics
+# ---------------------------------------------------------------------------------------------
+
+ACCURACY_COLUMNS = ["mase", "smape", "pinball_10", "pinball_50", "pinball_90", "coverage_80",
+                    "coverage_95"]
+
+
+@dataclass(frozen=True)
+class ForecastRun:
+    """Outcome of ``planner forecast``.
+
+    ``by_model``: median over terminals of each accuracy measure per model (MASE against weekly
+    seasonal naive, sMAPE in %, pinball losses in currency units, interval coverage as shares),
+    plus how many terminals chose the model as champion.
+    """
+
+    scenario: Scenario
+    clean: Any
+    forecast: Any
+    by_model: pd.DataFrame
+    champions: pd.DataFrame
+    run_folder: Path | None = None
+
+
+def forecast_only(source: str | Path | Scenario, *, options: PlanOptions | None = None,
+                  **overrides: Any) -> ForecastRun:
+    """Clean the history and forecast every terminal (no plan)."""
+    from planner.cleaning import clean_history
+    from planner.forecast import forecast_scenario
+
+    options = replace(options or PlanOptions(tail_days=0), **overrides)
+    scenario = source if isinstance(source, Scenario) else load_scenario(source)
+    scenario = _apply_options(scenario, options)
+    clean = clean_history(scenario)
+    forecast = forecast_scenario(scenario, clean,
+                                 horizon_days=scenario.horizon_days + options.tail_days,
+                                 path_count=scenario.path_count, seed=scenario.seed,
+                                 jobs=options.jobs, origins=options.origins)
+    acc = forecast.accuracy
+    cols = [c for c in ACCURACY_COLUMNS if c in acc.columns]
+    by_model = acc.groupby("model")[cols].median()
+    wins = forecast.champion["model"].value_counts()
+    by_model["champion_of"] = wins.reindex(by_model.index).fillna(0).astype(int)
+    by_model = by_model.reset_index().sort_values("mase", ignore_index=True)
+    champions = forecast.champion.reset_index()
+    return ForecastRun(scenario, clean, forecast, by_model, champions)
+
+
+def run_forecast(source: str | Path | Scenario, out_dir: str | Path, *,
+                 options: PlanOptions | None = None) -> ForecastRun:
+    """Forecast and write accuracy, champions and forecast quantiles to a run folder."""
+    from planner.runfolder import RunFolderWriter
+
+    run = forecast_only(source, options=options)
+    with RunFolderWriter(Path(out_dir)) as writer:
+        writer.write_csv("accuracy_by_model.csv", _rounded(run.by_model))
+        writer.write_csv("accuracy.csv", _rounded(run.forecast.accuracy))
+        writer.write_csv("champions.csv", _rounded(run.champions))
+        writer.write_csv("forecasts.csv", _rounded(run.forecast.quantiles))
+        writer.write_json("summary.json", {
+            "scenario": run.scenario.name, "input_fingerprint": run.scenario.fingerprint,
+            "paths": {"count": run.scenario.path_count, "seed": run.scenario.seed},
+            "versions": _versions(), "fallbacks": list(run.forecast.fallbacks),
+            "warnings": list(run.scenario.warnings)})
+    return replace(run, run_folder=Path(out_dir))
+
+
+@dataclass(frozen=True)
+class DiagnoseRun:
+    """Outcome of ``planner diagnose``: ``tests`` is the tidy table terminal_id, test,
+    statistic, p_value, verdict."""
+
+    scenario: Scenario
+    tests: pd.DataFrame
+    run_folder: Path | None = None
+
+
+def run_diagnose(source: str | Path | Scenario, out_dir: str | Path, *,
+                 terminal_ids: list[str] | None = None,
+                 options: PlanOptions | None = None) -> DiagnoseRun:
+    """Diagnose the history (and the champion's residuals) of terminals; write the run folder
+    with ``diagnostics.csv`` and one chart page per terminal."""
+    from planner.cleaning import clean_history
+    from planner.diagnostics import diagnose_scenario
+    from planner.errors import InputError, Problem
+    from planner.forecast import forecast_scenario
+    from planner.runfolder import RunFolderWriter
+
+    options = options or PlanOptions(tail_days=0)
+    scenario = source if isinstance(source, Scenario) else load_scenario(source)
+    scenario = _apply_options(scenario, options)
+    if terminal_ids:
+        unknown = [t for t in terminal_ids if t not in scenario.terminals.index]
+        if unknown:
+            raise InputError([Problem("--terminal", f"terminal {t!r} is not in terminals.csv",
+                                      "give an id from terminals.csv") for t in unknown])
+        scenario = _subset(scenario, terminal_ids)
+    clean = clean_history(scenario)
+    forecast = forecast_scenario(scenario, clean, horizon_days=scenario.horizon_days,
+                                 path_count=min(scenario.path_count, 100), seed=scenario.seed,
+                                 jobs=options.jobs, origins=options.origins)
+    residuals = getattr(forecast, "residuals", None)
+    with RunFolderWriter(Path(out_dir)) as writer:
+        results = diagnose_scenario(scenario, clean, residuals_by_terminal=residuals,
+                                    out_dir=writer.staging)
+        tests = pd.read_csv(writer.staging / "diagnostics.csv")
+    del results
+    return DiagnoseRun(scenario, tests, Path(out_dir))
+
+
+def _subset(scenario: Scenario, terminal_ids: list[str]) -> Scenario:
+    keep = list(dict.fromkeys(terminal_ids))
+    return replace(scenario,
+                   terminals=scenario.terminals.loc[keep],
+                   dispense=scenario.dispense[scenario.dispense["terminal_id"].isin(keep)]
+                   .reset_index(drop=True),
+                   committed=scenario.committed[scenario.committed["terminal_id"].isin(keep)]
+                   .reset_index(drop=True))
