@@ -1,0 +1,306 @@
+"""The planning problem and its result, as arrays (the schedule specification).
+
+:class:`PlanningProblem` is what every solver of the schedule sees (the decomposition in
+:mod:`planner.optimize.network` and the monolithic reference model): terminals, days (horizon +
+tail days), demand paths, limits, allowed days, committed visits, fees, crew limits, cost rates
+and the service target. :class:`PlanResult` is what every solver answers.
+
+Rules fixed here so that all solvers agree:
+
+- A visit may be planned on day ``d`` only where ``allowed[t, d]``. ``allowed`` is False in the
+  lock days (except on committed visits) and on days when the depot has no crew left after
+  its committed visits; it is True on every committed visit (``fixed_load`` not NaN), which must
+  be kept with its load.
+- Loads are whole bundles, ``0 ≤ load ≤ limit``.
+- Service target: at most :func:`dry_path_allowance` paths of a terminal may have a dry day
+  within the horizon (days ``0 … horizon_days − 1``). That is ``floor(max_dry_probability · P +
+  1e-9)``, raised to the least number reachable by the terminal on its own (a visit with a full
+  load on every allowed day; committed loads kept) when the target cannot be met; the result
+  then says why in ``notes``.
+- The objective is the expected cost over all days (horizon + tail), by :func:`planner.costs.simulate`.
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+
+from planner.costs import CostRates, Ledger, simulate
+
+WEEKDAY_NAMES = ("Mon", "Tue", "Wed", "Thu", "Fri", "Sat", "Sun")
+
+
+@dataclass(frozen=True)
+class PlanningProblem:
+    """One planning run as arrays; amounts in currency units, days counted from ``dates[0]``."""
+
+    terminal_ids: tuple[str, ...]   # T terminals
+    depots: tuple[str, ...]         # K depots
+    depot_of: np.ndarray            # [T] int index into depots
+    dates: pd.DatetimeIndex         # D days planned = horizon + tail days
+    horizon_days: int               # days reported and covered by the service target (≤ D)
+    demand: np.ndarray              # [T, P, D] demand paths, ≥ 0
+    start_balance: np.ndarray       # [T]
+    limit: np.ndarray               # [T] max balance after a visit, whole bundles
+    bundle: np.ndarray              # [T]
+    allowed: np.ndarray             # [T, D] bool: a visit may be planned that day
+    fixed_load: np.ndarray          # [T, D] NaN = free; a number = committed visit with that load
+    visit_fee: np.ndarray           # [T, D]
+    crew_limit: np.ndarray          # [K, D] int visits per depot and day
+    rates: CostRates
+    mode: str                       # "swap" | "topup"
+    max_dry_probability: float      # per terminal, over days [0, horizon_days)
+
+    @property
+    def shape(self) -> tuple[int, int, int]:
+        """(terminals, paths, days)."""
+        return self.demand.shape
+
+    @property
+    def committed(self) -> np.ndarray:
+        """[T, D] bool: committed visits (must be kept)."""
+        return ~np.isnan(self.fixed_load)
+
+    def subset(self, terminals: np.ndarray) -> "PlanningProblem":
+        """The problem restricted to some terminals (indices or a bool mask), all depots kept."""
+        idx = np.flatnonzero(terminals) if np.asarray(terminals).dtype == bool \
+            else np.asarray(terminals, dtype=int)
+        return PlanningProblem(
+            terminal_ids=tuple(self.terminal_ids[i] for i in idx),
+            depots=self.depots, depot_of=self.depot_of[idx], dates=self.dates,
+            horizon_days=self.horizon_days, demand=self.demand[idx],
+            start_balance=self.start_balance[idx], limit=self.limit[idx],
+            bundle=self.bundle[idx], allowed=self.allowed[idx],
+            fixed_load=self.fixed_load[idx], visit_fee=self.visit_fee[idx],
+            crew_limit=self.crew_limit, rates=self.rates, mode=self.mode,
+            max_dry_probability=self.max_dry_probability)
+
+
+@dataclass(frozen=True)
+class PlanResult:
+    """A plan and how good it is.
+
+    ``visits`` ``[T, D]`` bool, ``loads`` ``[T, D]`` (0 where no visit). ``objective`` is the
+    expected cost summed over terminals (= ``ledger.expected_cost().sum()``), ``bound`` the best
+    lower bound proven, ``gap = (objective − bound) / objective``. ``status`` is ``"optimal"``
+    (gap within the tolerance), ``"time_limit"`` (best plan found when time ran out, with its
+    gap) or ``"feasible"``. ``notes`` has one text per terminal ("" when the service target is
+    met as asked); ``dry_probability`` ``[T]`` is the share of paths with a dry day within the
+    horizon.
+    """
+
+    visits: np.ndarray
+    loads: np.ndarray
+    status: str
+    objective: float
+    bound: float
+    gap: float
+    solver: str
+    time_s: float
+    notes: tuple[str, ...]
+    dry_probability: np.ndarray
+    ledger: Ledger
+    iterations: int = 0
+    log: tuple[str, ...] = field(default=())
+
+
+# --------------------------------------------------------------------------------------------
+# Building the problem from a scenario
+# --------------------------------------------------------------------------------------------
+
+
+def build_problem(scenario, paths: np.ndarray, dates, *, tail_days: int,
+                  terminal_ids: list[str] | tuple[str, ...] | None = None) -> PlanningProblem:
+    """Turn a :class:`planner.scenario.Scenario` and demand paths into a :class:`PlanningProblem`.
+
+    ``paths`` ``[T, P, D]`` (currency per day, ≥ 0) in the order of ``terminal_ids`` (default:
+    the scenario's terminal order); ``dates`` the ``D`` days of the paths (horizon + tail days;
+    when shorter, continued day by day from its first day). The horizon is ``D − tail_days``
+    days. Allowed days come from each terminal's ``visit_days``; in the first ``lock_days``
+    days only committed visits happen; visit fees are the terminal's own ``visit_fee`` when
+    given, else the scenario's fee of the weekday; crew limits are the depots' Mon…Sun columns.
+
+    Raises ``ValueError`` when the paths do not match the terminals or the tail leaves no horizon.
+    """
+    terminals = scenario.terminals
+    ids = tuple(terminal_ids) if terminal_ids is not None else tuple(terminals.index)
+    demand = np.asarray(paths, dtype=float)
+    if demand.ndim != 3 or demand.shape[0] != len(ids):
+        raise ValueError(f"paths must be [terminal, path, day] for {len(ids)} terminals, got "
+                         f"shape {demand.shape}")
+    t_count, _, d_count = demand.shape
+    horizon = d_count - int(tail_days)
+    if horizon < 1:
+        raise ValueError(f"{d_count} days of paths leave no horizon after {tail_days} tail days")
+    dates = pd.DatetimeIndex(dates)
+    if len(dates) != d_count:
+        dates = pd.date_range(pd.Timestamp(dates[0]).normalize(), periods=d_count, freq="D")
+    weekday = dates.weekday.to_numpy()
+
+    rows = terminals.loc[list(ids)]
+    depots = tuple(scenario.depots.index)
+    depot_of = np.array([depots.index(d) for d in rows["depot"]], dtype=int)
+    crew_limit = scenario.depots[list(WEEKDAY_NAMES)].to_numpy(dtype=int)[:, weekday]
+
+    allowed_weekdays = np.array([list(w) for w in rows["allowed_weekdays"]], dtype=bool)
+    allowed = allowed_weekdays[:, weekday]
+    allowed[:, : min(int(scenario.lock_days), d_count)] = False
+
+    fixed_load = np.full((t_count, d_count), np.nan)
+    position = {tid: i for i, tid in enumerate(ids)}
+    day_of = {pd.Timestamp(d): j for j, d in enumerate(dates)}
+    for tid, date, load in zip(scenario.committed["terminal_id"], scenario.committed["date"],
+                               scenario.committed["load"]):
+        i, j = position.get(tid), day_of.get(pd.Timestamp(date))
+        if i is not None and j is not None:
+            fixed_load[i, j] = float(load)
+    committed = ~np.isnan(fixed_load)
+
+    # a day on which the depot's crews are all taken by committed visits offers no free visit
+    taken = np.zeros_like(crew_limit)
+    np.add.at(taken, depot_of, committed.astype(int))
+    allowed &= (crew_limit - taken)[depot_of] > 0
+    allowed |= committed
+
+    costs = scenario.costs
+    by_weekday = np.array([costs.visit_fee_on(w) for w in weekday], dtype=float)
+    own_fee = rows["visit_fee"].to_numpy(dtype=float)
+    visit_fee = np.where(np.isnan(own_fee)[:, None], by_weekday[None, :], own_fee[:, None])
+
+    return PlanningProblem(
+        terminal_ids=ids,
+        depots=depots,
+        depot_of=depot_of,
+        dates=dates,
+        horizon_days=horizon,
+        demand=demand,
+        start_balance=rows["balance_now"].to_numpy(dtype=float),
+        limit=rows["limit"].to_numpy(dtype=float),
+        bundle=rows["bundle"].to_numpy(dtype=float),
+        allowed=allowed,
+        fixed_load=fixed_load,
+        visit_fee=visit_fee,
+        crew_limit=crew_limit,
+        rates=CostRates.from_settings(costs),
+        mode=scenario.replenishment,
+        max_dry_probability=float(scenario.max_dry_probability),
+    )
+
+
+# --------------------------------------------------------------------------------------------
+# Shared rules: evaluation, service target, results
+# --------------------------------------------------------------------------------------------
+
+
+def evaluate_plan(problem: PlanningProblem, visits: np.ndarray, loads: np.ndarray) -> Ledger:
+    """The exact accounting of a plan on the problem's paths (:func:`planner.costs.simulate`)."""
+    return simulate(visits, loads, problem.start_balance, problem.demand, problem.limit,
+                    problem.visit_fee, problem.rates, problem.mode)
+
+
+def target_dry_paths(problem: PlanningProblem) -> int:
+    """Paths per terminal allowed a dry day within the horizon by the target as asked."""
+    return int(math.floor(problem.max_dry_probability * problem.shape[1] + 1e-9))
+
+
+def max_service_plan(problem: PlanningProblem) -> tuple[np.ndarray, np.ndarray]:
+    """Visits and loads that keep each terminal as far from dry as it can get on its own.
+
+    A visit with a full load (the limit) on every allowed day, committed loads kept. Whatever
+    plan a terminal follows, its balance on every path and day is at most this plan's (a later
+    visit and a fuller load never lower the balance, in swap and in top-up mode), so no plan
+    has fewer dry paths.
+    """
+    visits = problem.allowed.copy()
+    loads = np.where(problem.committed, problem.fixed_load,
+                     np.where(visits, problem.limit[:, None], 0.0))
+    return visits, loads
+
+
+def dry_path_allowance(problem: PlanningProblem) -> tuple[np.ndarray, np.ndarray]:
+    """``(allowance [T] int, least [T] int)``: the paths per terminal that may have a dry day
+    within the horizon, and the least number reachable (by :func:`max_service_plan`).
+
+    ``allowance = max(floor(max_dry_probability · P + 1e-9), least)``.
+    """
+    visits, loads = max_service_plan(problem)
+    ledger = evaluate_plan(problem, visits, loads)
+    least = ledger.dry_paths(problem.horizon_days).sum(axis=1).astype(int)
+    return np.maximum(target_dry_paths(problem), least), least
+
+
+def target_notes(problem: PlanningProblem) -> tuple[str, ...]:
+    """Per terminal, why the service target cannot be met ("" when it can)."""
+    visits, loads = max_service_plan(problem)
+    ledger = evaluate_plan(problem, visits, loads)
+    horizon = problem.horizon_days
+    paths = problem.shape[1]
+    target = target_dry_paths(problem)
+    dry = ledger.dry[:, :, :horizon]
+    least = dry.any(axis=2).sum(axis=1)
+    notes = []
+    for t in range(problem.shape[0]):
+        if least[t] <= target:
+            notes.append("")
+            continue
+        share = least[t] / paths
+        head = (f"target {problem.max_dry_probability:.1%} not reachable: at best "
+                f"{share:.1%} of paths run dry within the horizon")
+        notes.append(f"{head}; {_dry_cause(problem, t, visits[t], dry[t])}")
+    return tuple(notes)
+
+
+def _dry_cause(problem: PlanningProblem, t: int, visits: np.ndarray, dry: np.ndarray) -> str:
+    """Plain words for the most frequent cause of the dry days that no plan can avoid."""
+    days = dry.sum(axis=0)                      # dry paths per day within the horizon
+    worst = int(np.argmax(days))
+    before = np.flatnonzero(visits[: worst + 1])
+    when = f"{WEEKDAY_NAMES[problem.dates[worst].weekday()]} {problem.dates[worst]:%Y-%m-%d}"
+    if before.size == 0:
+        if problem.allowed[t].any():
+            first = int(np.flatnonzero(problem.allowed[t])[0])
+            return (f"the start balance {problem.start_balance[t]:,.0f} runs out before the "
+                    f"first possible visit on {problem.dates[first]:%a %Y-%m-%d} "
+                    f"(lock days, visit days or crews), e.g. on {when}")
+        return f"no visit is possible within the horizon (visit days, lock days or crews)"
+    last = int(before[-1])
+    if problem.committed[t, last]:
+        return (f"the committed load {problem.fixed_load[t, last]:,.0f} on "
+                f"{problem.dates[last]:%a %Y-%m-%d} does not last until the next possible "
+                f"visit, e.g. dry on {when}")
+    if last == worst:
+        return (f"demand above the limit {problem.limit[t]:,.0f} even with daily visits, "
+                f"e.g. on {when}")
+    return (f"too few allowed visit days: no visit possible between "
+            f"{problem.dates[last]:%a %Y-%m-%d} and {when} with a full load of "
+            f"{problem.limit[t]:,.0f}")
+
+
+def result_from_plan(problem: PlanningProblem, visits: np.ndarray, loads: np.ndarray, *,
+                     status: str, bound: float, solver: str, time_s: float,
+                     notes: tuple[str, ...] | None = None, iterations: int = 0,
+                     log: tuple[str, ...] = ()) -> PlanResult:
+    """Evaluate a plan exactly and package it as a :class:`PlanResult` (objective, gap)."""
+    visits = np.asarray(visits, dtype=bool)
+    loads = np.where(visits, np.asarray(loads, dtype=float), 0.0)
+    ledger = evaluate_plan(problem, visits, loads)
+    objective = float(ledger.expected_cost().sum())
+    gap = relative_gap(objective, bound)
+    if notes is None:
+        notes = target_notes(problem)
+    return PlanResult(visits=visits, loads=loads, status=status, objective=objective,
+                      bound=float(bound), gap=gap, solver=solver, time_s=float(time_s),
+                      notes=tuple(notes), dry_probability=ledger.dry_probability(
+                          problem.horizon_days), ledger=ledger, iterations=iterations,
+                      log=tuple(log))
+
+
+def relative_gap(objective: float, bound: float) -> float:
+    """``(objective − bound) / |objective|`` (0 when both are 0; ``inf`` without a bound)."""
+    if not np.isfinite(bound):
+        return math.inf
+    if abs(objective) < 1e-12:
+        return 0.0 if bound >= objective - 1e-9 else math.inf
+    return max(0.0, (objective - bound) / abs(objective))
