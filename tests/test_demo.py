@@ -1,0 +1,172 @@
+"""Tests of the Northvale demo scenario (planner/demo/make_demo.py and planner/demo/northvale)."""
+from __future__ import annotations
+
+import re
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from planner.demo import make_demo
+from planner.scenario import load_scenario
+
+FOLDER = Path(make_demo.__file__).with_name("northvale")
+
+
+@pytest.fixture(scope="module")
+def scenario():
+    return load_scenario(FOLDER)
+
+
+@pytest.fixture(scope="module")
+def raw() -> pd.DataFrame:
+    """dispense.csv as written (load_scenario keeps it too; this keeps the file's own view)."""
+    return pd.read_csv(FOLDER / "dispense.csv", parse_dates=["date"])
+
+
+@pytest.fixture(scope="module")
+def truth() -> pd.DataFrame:
+    return pd.read_csv(FOLDER / "truth" / "true_demand.csv", parse_dates=["date"])
+
+
+@pytest.fixture(scope="module")
+def injected() -> pd.DataFrame:
+    return pd.read_csv(FOLDER / "truth" / "injected.csv", parse_dates=["date"])
+
+
+def test_loads_without_errors_or_ignored_columns(scenario):
+    assert scenario.currency == "EUR"
+    assert scenario.replenishment == "swap"
+    assert scenario.horizon_days == 14 and scenario.lock_days == 1
+    assert scenario.path_count == 500
+    assert scenario.max_dry_probability == 0.02
+    # the only notice is the one about the missing rows we put in on purpose
+    assert not [w for w in scenario.warnings if "ignored" in w]
+    assert any("missing day" in w for w in scenario.warnings)
+
+
+def test_network_size_and_ids(scenario):
+    assert len(scenario.terminals) == 60
+    assert len(scenario.depots) == 3
+    assert all(re.fullmatch(r"[A-Z]{3}-\d{3}", t) for t in scenario.terminal_ids)
+    assert set(scenario.terminals["depot"]) == set(scenario.depots.index)
+
+
+def test_history_length_and_planning_start(scenario):
+    d = scenario.dispense["date"]
+    assert (d.max() - d.min()).days + 1 >= 730
+    assert d.max() == scenario.start_date - pd.Timedelta(days=1)
+    assert scenario.start_date.day_of_week == 0  # planning starts on a Monday
+    # every terminal reports over the full span
+    span = scenario.dispense.groupby("terminal_id")["date"].agg(["min", "max"])
+    assert (span["min"] == d.min()).all() and (span["max"] == d.max()).all()
+
+
+def test_history_holds_every_kind_of_problem(scenario, raw):
+    status = raw["status"].value_counts()
+    assert status["dry"] >= 50 and status["down"] >= 50
+    days = (raw["date"].max() - raw["date"].min()).days + 1
+    assert len(raw) < 60 * days  # missing rows
+    assert (raw.loc[raw["status"] == "down", "amount"] == 0).all()
+    # outlier-like rows: far above the terminal's own upper Tukey fence (3 × IQR, "far out";
+    # Tukey 1977, common practice)
+    ok = raw[raw["status"] == "ok"]
+    q = ok.groupby("terminal_id")["amount"].quantile([0.25, 0.75]).unstack()
+    fence = (q[0.75] + 3 * (q[0.75] - q[0.25])).rename("fence")
+    far = ok.join(fence, on="terminal_id").query("amount > 2 * fence")
+    assert 5 <= len(far) <= 30
+
+
+def test_amounts_are_banknote_multiples(raw, truth):
+    assert (raw["amount"] % 10 == 0).all()
+    assert (truth["demand"] % 10 == 0).all() and (truth["demand"] >= 0).all()
+
+
+def test_recorded_history_agrees_with_the_truth(raw, truth, injected):
+    both = raw.merge(truth, on=["terminal_id", "date"], how="left", validate="one_to_one")
+    assert both["demand"].notna().all()
+    errors = injected[injected["kind"] == "outlier"][["terminal_id", "date"]].assign(err=True)
+    both = both.merge(errors, on=["terminal_id", "date"], how="left")
+    both["err"] = both["err"].fillna(False).astype(bool)
+    ok = both[(both["status"] == "ok") & ~both["err"]]
+    assert (ok["amount"] == ok["demand"]).all()
+    dry = both[both["status"] == "dry"]
+    assert (dry["amount"] < dry["demand"]).all()  # censored: a strict lower bound
+    # every injected problem is where the file says it is
+    assert both["err"].sum() == len(errors)
+    marked = injected[injected["kind"].isin(["dry", "down"])]
+    rows = raw.merge(marked, on=["terminal_id", "date"])
+    assert (rows["status"] == rows["kind"]).all()
+    missing = injected[injected["kind"] == "missing"]
+    assert len(missing.merge(raw, on=["terminal_id", "date"])) == 0
+
+
+def test_truth_covers_history_and_the_weeks_ahead(scenario, truth):
+    per = truth.groupby("terminal_id")["date"].agg(["min", "max", "size"])
+    assert set(per.index) == set(scenario.terminal_ids)
+    assert (per["min"] == scenario.dispense["date"].min()).all()
+    assert (per["max"] >= scenario.horizon_dates[-1]).all()
+    assert (per["size"] == (per["max"] - per["min"]).dt.days + 1).all()
+
+
+def test_scale_limits_and_balances(scenario, truth):
+    t = scenario.terminals
+    hist = truth[truth["date"] < scenario.start_date]
+    mean = hist.groupby("terminal_id")["demand"].mean()
+    assert 2_000 <= mean.min() and mean.max() <= 25_000
+    assert t["capacity"].between(80_000, 240_000).all()
+    assert (t["insurance_limit"] < t["capacity"]).sum() >= 3
+    assert set(t["bundle"]) <= {1000, 2000, 5000}
+    assert (t["balance_now"] <= t["limit"]).all() and (t["balance_now"] % 10 == 0).all()
+    assert (t["visit_days"] == "Mon|Tue|Wed|Thu|Fri").mean() > 0.5
+    assert (t["visit_days"] == "Mon|Wed|Fri").any()
+    assert t["visit_days"].str.contains("Sat").any()
+    assert not t["visit_days"].str.contains("Sun").any()
+
+
+def test_costs_and_calendar(scenario):
+    c = scenario.costs
+    assert 0.04 <= c.carry_rate_annual <= 0.06
+    assert 100 <= c.visit_fee <= 150 and c.visit_fee_on(5) > c.visit_fee
+    assert c.emergency_visit_fee == pytest.approx(3 * c.visit_fee)
+    assert 0.5 <= c.handling_per_1000 <= 1.0 and 500 <= c.dry_day_penalty <= 800
+    assert scenario.calendar.country == "DE"
+    assert {e.lift for e in scenario.calendar.events} == {1.4}
+    assert any(e.date in scenario.horizon_dates for e in scenario.calendar.events)
+
+
+def test_committed_visits_on_the_first_day(scenario):
+    c = scenario.committed
+    assert 2 <= len(c) <= 3
+    assert (c["date"] == scenario.start_date).all()
+    limits = scenario.terminals.loc[c["terminal_id"]]
+    assert (c["load"].to_numpy() % limits["bundle"].to_numpy() == 0).all()
+    assert (c["load"].to_numpy() <= limits["limit"].to_numpy()).all()
+
+
+def test_crews_bind_on_busy_days_but_fit_the_week(scenario, truth):
+    ahead = truth[truth["date"].isin(scenario.horizon_dates)]
+    weekly = ahead.groupby("terminal_id")["demand"].sum() / (scenario.horizon_days / 7)
+    check = make_demo.crew_check(scenario.terminals, weekly)
+    assert (check["need"] > check["crews"]).any()
+    week = check.groupby("depot")[["need", "crews"]].sum()
+    assert (week["need"] < week["crews"]).all()
+    # the generator's depots are the file's depots
+    crews = scenario.depots.loc[check["depot"]]
+    assert (crews.to_numpy()[np.arange(len(check)), [make_demo.WEEKDAYS.index(w)
+            for w in check["weekday"]]] == check["crews"].to_numpy()).all()
+
+
+def test_data_files_below_10_mb():
+    size = sum(p.stat().st_size for p in FOLDER.rglob("*") if p.is_file())
+    assert size < 10_000_000
+
+
+def test_regeneration_is_byte_identical(tmp_path):
+    make_demo.main(tmp_path, verbose=False)
+    written = sorted(p.relative_to(tmp_path) for p in tmp_path.rglob("*") if p.is_file())
+    shipped = sorted(p.relative_to(FOLDER) for p in FOLDER.rglob("*") if p.is_file())
+    assert written == shipped
+    for rel in written:
+        assert (tmp_path / rel).read_bytes() == (FOLDER / rel).read_bytes(), rel
