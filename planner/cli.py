@@ -24,7 +24,7 @@ app = typer.Typer(
     help="Cash replenishment planner: visit days and loads for cash machines, from dispense "
          "history to a costed plan.",
 )
-console = Console(stderr=False, highlight=False)
+console = Console(stderr=False, highlight=False, width=None if sys.stdout.isatty() else 120)
 errors = Console(stderr=True, highlight=False)
 
 SCENARIO_HELP = ("Scenario folder (scenario.toml, terminals.csv, depots.csv, dispense.csv, "

@@ -58,6 +58,14 @@ def check_scenario(path: str | Path | Scenario) -> CheckResult:
     if "terminal_id" not in quality.columns:
         quality = quality.rename(columns={quality.columns[0]: "terminal_id"})
     quality.insert(1, "depot", quality["terminal_id"].map(scenario.terminals["depot"]))
+    keep = ["terminal_id", "depot", "days", "gaps", "down", "dry", "outliers", "first", "last",
+            "mean_daily"]
+    quality = quality[[c for c in keep if c in quality.columns]]
+    for col in ("first", "last"):
+        if col in quality.columns:
+            quality[col] = pd.to_datetime(quality[col]).dt.strftime("%Y-%m-%d")
+    if "mean_daily" in quality.columns:
+        quality["mean_daily"] = quality["mean_daily"].round(0)
     counts = [c for c in ("days", "gaps", "down", "dry", "outliers") if c in quality.columns]
     network = {"terminals": int(len(scenario.terminals)),
                "depots": int(len(scenario.depots)),
