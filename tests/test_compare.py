@@ -1,0 +1,107 @@
+"""What-if comparison: parsing and applying overrides with clear messages, and the comparison on
+common demand paths (identical variant → delta exactly zero; a fee increase never lowers the
+planned cost)."""
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from planner.compare import (apply_overrides, parse_override, parse_variants,
+                             read_variant_file, variant_from_sets)
+from planner.errors import InputError
+from planner.scenario import load_scenario
+
+TINY = Path(__file__).resolve().parents[1] / "planner" / "demo" / "tiny"
+
+
+@pytest.fixture(scope="module")
+def tiny():
+    return load_scenario(TINY)
+
+
+def test_values_set_change_relatively_or_by_an_amount():
+    assert parse_override("costs.visit_fee=+15%").change == "relative"
+    assert parse_override("costs.visit_fee=+15%").value == pytest.approx(0.15)
+    assert parse_override("costs.visit_fee=-10%").value == pytest.approx(-0.10)
+    o = parse_override("costs.carry_rate_annual = -0.01")
+    assert (o.key, o.value, o.change) == ("costs.carry_rate_annual", -0.01, "add")
+    o = parse_override("costs.carry_rate_annual=0.06")
+    assert (o.value, o.change) == (0.06, "set")
+    assert parse_override("planning.replenishment=topup").value == "topup"
+    with pytest.raises(InputError, match="KEY=VALUE"):
+        parse_override("costs.visit_fee")
+
+
+def test_overrides_change_costs_service_depots_and_terminals(tiny):
+    v = variant_from_sets("costs.visit_fee=+15%,costs.carry_rate_annual=0.06;"
+                          "service.max_dry_probability=0.01")
+    assert len(v.overrides) == 3
+    sc = apply_overrides(tiny, v.overrides)
+    assert sc.costs.visit_fee == pytest.approx(120 * 1.15)
+    assert sc.costs.carry_rate_annual == 0.06
+    assert sc.max_dry_probability == 0.01
+    assert tiny.costs.visit_fee == 120 and tiny.max_dry_probability == 0.05  # base unchanged
+    sc = apply_overrides(tiny, [parse_override("depots.Brenholm.max_visits_per_day=3"),
+                                parse_override("depots.Brenholm.Sat=+1"),
+                                parse_override("costs.visit_fee_by_weekday.Sat=200"),
+                                parse_override("terminals.BRH-002.capacity=+25%"),
+                                parse_override("terminals.BRH-003.visit_days=Mon|Thu"),
+                                parse_override("terminals.*.bundle=500")])
+    assert sc.depots.loc["Brenholm"].tolist() == [3, 3, 3, 3, 3, 4, 3]
+    assert sc.costs.visit_fee_by_weekday == {5: 200.0}
+    assert sc.terminals.at["BRH-002", "capacity"] == 100000
+    # limit = min(capacity, insurance) in whole bundles, recomputed
+    assert sc.terminals.at["BRH-002", "limit"] == 80000
+    assert sc.terminals.at["BRH-003", "allowed_weekdays"] == (True, False, False, True, False,
+                                                              False, False)
+    assert (sc.terminals["bundle"] == 500).all()
+
+
+def test_unknown_keys_suggest_the_closest_and_bad_values_say_why(tiny):
+    def problems(*texts):
+        with pytest.raises(InputError) as info:
+            apply_overrides(tiny, [parse_override(t) for t in texts])
+        return str(info.value)
+
+    assert "did you mean 'costs.visit_fee'" in problems("costs.visitfee=130")
+    assert "did you mean 'service.max_dry_probability'" in problems("service.max_dry_prob=0.1")
+    assert "did you mean 'Brenholm'" in problems("depots.Brenhol.max_visits_per_day=3")
+    assert "did you mean 'BRH-001'" in problems("terminals.BRH-01.capacity=1")
+    assert "did you mean 'capacity'" in problems("terminals.BRH-001.capacty=1")
+    assert "did you mean 'Sat'" in problems("costs.visit_fee_by_weekday.Sa=1")
+    assert "rate in [0, 1)" in problems("costs.carry_rate_annual=5")
+    assert "probability in (0, 1)" in problems("service.max_dry_probability=0")
+    assert "amount ≥ 0" in problems("costs.visit_fee=-200%")
+    assert "swap or topup" in problems("planning.replenishment=refill")
+    assert "cannot be varied" in problems("paths.count=10")
+    assert "cannot be varied" in problems("planning.horizon_days=21")
+    assert "above the capacity" in problems("terminals.BRH-003.capacity=1000")
+    # every problem of one variant at once
+    text = problems("costs.visitfee=1", "costs.carry_rate_annual=2")
+    assert "visitfee" in text and "carry_rate_annual" in text
+
+
+def test_variant_files_use_the_scenario_keys(tmp_path, tiny):
+    path = tmp_path / "new_contract.toml"
+    path.write_text('name = "new courier contract"\n[costs]\nvisit_fee = 140\n'
+                    'handling_per_1000 = "+25%"\n[costs.visit_fee_by_weekday]\nSat = 210\n'
+                    '[depots.Brenholm]\nmax_visits_per_day = 3\n'
+                    '[terminals."BRH-001"]\ninsurance_limit = 90000\n')
+    v = read_variant_file(path)
+    assert v.name == "new courier contract"
+    sc = apply_overrides(tiny, v.overrides)
+    assert sc.costs.visit_fee == 140 and sc.costs.handling_per_1000 == pytest.approx(1.0)
+    assert sc.terminals.at["BRH-001", "limit"] == 90000
+    bad = tmp_path / "bad.toml"
+    bad.write_text("[costs]\nvisit_fee = \n")
+    with pytest.raises(InputError, match="TOML syntax error"):
+        read_variant_file(bad)
+    bad.write_text("[calendar]\nholidays = \"FR\"\n")
+    with pytest.raises(InputError, match="cannot be varied"):
+        apply_overrides(tiny, read_variant_file(bad).overrides)
+    with pytest.raises(InputError, match="no variant"):
+        parse_variants([], [])
+    names = [v.name for v in parse_variants(["costs.visit_fee=+10%"], [path])]
+    assert names == ["costs.visit_fee=+10%", "new courier contract"]
