@@ -29,9 +29,8 @@ import pandas as pd
 
 from planner.calendar import FEATURE_COLUMNS, calendar_features
 from planner.errors import InputError, Problem
-from planner.forecast.backtest import (METRIC_COLUMNS, backtest_model, champion_reason,
-                                       origin_days, rank_models)
-from planner.forecast.models import LEVELS, MODELS, DemandModel, ModelFitError, SeasonalNaive
+from planner.forecast.backtest import backtest_model, champion_reason, origin_days, rank_models
+from planner.forecast.models import LEVELS, MODELS, DemandModel, ModelFitError
 from planner.forecast.network import NetworkProfile, network_profile
 from planner.forecast.paths import simulate_paths, terminal_seeds
 
@@ -49,7 +48,7 @@ class ForecastResult:
 
     - ``terminal_ids``: terminals in the order of ``terminals.csv`` (the first axis of
       ``paths``);
-    - ``dates``: the forecast days (the second axis … third axis of ``paths``);
+    - ``dates``: the forecast days (the third axis of ``paths``);
     - ``paths``: demand paths ``[terminal, path, day]`` in currency units, ≥ 0, joint over the
       days, reproducible from the seed;
     - ``quantiles``: long frame ``terminal_id, date, model`` (the champion),
