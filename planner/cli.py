@@ -7,7 +7,14 @@ traceback).
 from __future__ import annotations
 
 import json
+import os
 import sys
+
+# The work is many small linear-algebra problems (one per terminal, spread over processes with
+# --jobs); threaded BLAS only adds contention there, so one BLAS thread per process unless the
+# user chose otherwise. Set before numpy is first imported.
+for _var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
+    os.environ.setdefault(_var, "1")
 from pathlib import Path
 from typing import Callable, Optional
 
