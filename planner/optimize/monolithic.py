@@ -33,6 +33,7 @@ the optimum is the accounting's optimum.
 from __future__ import annotations
 
 import math
+import re
 from dataclasses import dataclass
 
 import numpy as np
@@ -208,12 +209,14 @@ def define_crew_limits(model: MonolithicModel, problem: PlanningProblem) -> None
     """Σ_{t in depot k} visit[t,d] ≤ crew_limit[k,d] (committed visits count)."""
     D = problem.allowed.shape[1]
     for k, depot in enumerate(problem.depots):
+        depot_name = re.sub(r"\W", "_", depot)   # PuLP names allow no spaces
         members = np.flatnonzero(problem.depot_of == k)
         for d in range(D):
             visits = pulp.lpSum(model.visit[t, d] for t in members)
             if visits.isNumericalConstant():
                 continue  # committed visits only: fixed data, nothing left to decide
-            model.prob += visits <= int(problem.crew_limit[k, d]), f"crew_limit_{depot}_{d}"
+            model.prob += (visits <= int(problem.crew_limit[k, d]),
+                           f"crew_limit_{depot_name}_{d}")
 
 
 
