@@ -228,7 +228,7 @@ def forecast(
         _print_warnings(result.scenario.warnings, quiet)
         console.print(_frame_table(result.by_model, "Forecast accuracy by model "
                                                     "(median over terminals)"))
-        console.print(_frame_table(result.champions, "Champions"))
+        console.print("Champion per terminal and its reason: champions.csv in the run folder.")
         console.print(f"Run folder written: [bold]{result.run_folder}[/bold]")
 
     _run(debug, action)
