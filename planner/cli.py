@@ -266,6 +266,110 @@ def diagnose(
     _run(debug, action)
 
 
+@app.command()
+def backtest(
+    scenario: Optional[Path] = typer.Argument(None, help=SCENARIO_HELP, show_default=False,
+                                            metavar="SCENARIO"),
+    weeks: int = typer.Option(12, "--weeks", "-w", min=1,
+                              help="Weeks to replay, ending with the last day of history."),
+    past_visits: Optional[Path] = typer.Option(None, "--past-visits",
+                                               help="CSV of the visits actually made "
+                                                    "(terminal_id, date, load), replayed as "
+                                                    "one more baseline routine."),
+    out: Path = typer.Option(Path("runs/backtest"), "--out", "-o",
+                             help="Run folder to write (replaced whole if it exists)."),
+    paths: Optional[int] = typer.Option(None, "--paths", min=1,
+                                        help="Demand paths per weekly plan (default: the "
+                                             "scenario's paths.count)."),
+    seed: Optional[int] = typer.Option(None, "--seed", help="Random seed (default: the "
+                                                            "scenario's paths.seed)."),
+    origins: int = typer.Option(4, "--origins", min=1,
+                                help="Weekly origins of the model-choice backtest inside each "
+                                     "weekly plan."),
+    jobs: int = typer.Option(1, "--jobs", "-j", min=1, help="Parallel processes."),
+    time_limit: float = typer.Option(60.0, "--time-limit", min=1.0,
+                                     help="Solver time limit per weekly plan, in seconds."),
+    quiet: bool = typer.Option(False, "--quiet", "-q", help="Print only errors."),
+    as_json: bool = typer.Option(False, "--json", help="Print the policy table as JSON."),
+    debug: bool = typer.Option(False, "--debug", help="Show tracebacks of internal errors."),
+) -> None:
+    """Replay past weeks: each week plan with the data known then, execute 7 days against the
+    recorded demand, carry the balances; compare with baseline routines and the
+    perfect-foresight bound."""
+
+    def action() -> None:
+        from planner.pipeline import PlanOptions, run_backtest
+
+        options = PlanOptions(path_count=paths, seed=seed, jobs=jobs, origins=origins,
+                              time_limit_s=time_limit)
+        say = None if (quiet or as_json) else (lambda text: errors.print(text, markup=False))
+        result = run_backtest(_scenario_path(scenario), out, weeks=weeks, options=options,
+                              past_visits=past_visits, progress=say)
+        if as_json:
+            console.print_json(result.table.to_json(orient="records"))
+            return
+        if quiet:
+            return
+        console.print(_frame_table(result.table, "Backtest by policy"))
+        for line in result.summary.get("headline", []):
+            console.print(line, markup=False)
+        console.print(f"Run folder written: [bold]{out}[/bold]")
+
+    _run(debug, action)
+
+
+@app.command()
+def compare(
+    scenario: Optional[Path] = typer.Argument(None, help=SCENARIO_HELP, show_default=False,
+                                            metavar="SCENARIO"),
+    sets: Optional[list[str]] = typer.Option(None, "--set", "-s",
+                                             help="One what-if variant as KEY=VALUE, several "
+                                                  "joined by ';' or ',' (repeat --set for more "
+                                                  "variants), e.g. costs.visit_fee=+15% or "
+                                                  "depots.Ashmere.max_visits_per_day=3."),
+    variant: Optional[list[Path]] = typer.Option(None, "--variant",
+                                                 help="TOML file of one variant (same keys as "
+                                                      "scenario.toml, plus a table per depot, depots.NAME); "
+                                                      "repeatable."),
+    out: Path = typer.Option(Path("runs/compare"), "--out", "-o",
+                             help="Run folder to write (replaced whole if it exists)."),
+    paths: Optional[int] = typer.Option(None, "--paths", min=1,
+                                        help="Demand paths (default: the scenario's "
+                                             "paths.count)."),
+    seed: Optional[int] = typer.Option(None, "--seed", help="Random seed (default: the "
+                                                            "scenario's paths.seed)."),
+    jobs: int = typer.Option(1, "--jobs", "-j", min=1, help="Parallel processes."),
+    time_limit: float = typer.Option(60.0, "--time-limit", min=1.0,
+                                     help="Solver time limit per variant, in seconds."),
+    quiet: bool = typer.Option(False, "--quiet", "-q", help="Print only errors."),
+    as_json: bool = typer.Option(False, "--json", help="Print the comparison as JSON."),
+    debug: bool = typer.Option(False, "--debug", help="Show tracebacks of internal errors."),
+) -> None:
+    """Compare what-if variants (courier fees, rates, service targets, crews): each is
+    re-planned on the same demand paths and priced on the same out-of-sample paths."""
+
+    def action() -> None:
+        from planner.pipeline import PlanOptions, run_compare
+
+        options = PlanOptions(path_count=paths, seed=seed, jobs=jobs, time_limit_s=time_limit)
+        result = run_compare(_scenario_path(scenario), out, sets=sets or [],
+                             files=variant or [], options=options)
+        if as_json:
+            console.print_json(result.table.to_json(orient="records"))
+            return
+        if quiet:
+            return
+        cols = [c for c in ("variant", "changes", "expected_cost", "cost_delta",
+                            "cost_delta_low", "cost_delta_high", "dry_days_delta",
+                            "terminals_over_target") if c in result.table.columns]
+        console.print(_frame_table(result.table[cols], "What-if variants against the base"))
+        for line in result.summary.get("headline", []):
+            console.print(line, markup=False)
+        console.print(f"Run folder written: [bold]{out}[/bold]")
+
+    _run(debug, action)
+
+
 def run() -> None:  # pragma: no cover - console entry for `python -m planner`
     app()
 

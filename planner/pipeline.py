@@ -362,3 +362,43 @@ def _subset(scenario: Scenario, terminal_ids: list[str]) -> Scenario:
                    .reset_index(drop=True),
                    committed=scenario.committed[scenario.committed["terminal_id"].isin(keep)]
                    .reset_index(drop=True))
+
+
+# ---------------------------------------------------------------------------------------------
+# Backtest and what-if comparison (finance)
+# ---------------------------------------------------------------------------------------------
+
+
+def run_backtest(source: str | Path | Scenario, out_dir: str | Path, *, weeks: int,
+                 options: PlanOptions | None = None, past_visits: str | Path | None = None,
+                 progress: Any = None) -> Any:
+    """Replay the last ``weeks`` weeks (planner, baseline routines, perfect-foresight bound)
+    and write the backtest tables and chart to a run folder."""
+    from planner.evaluate.backtest import backtest_scenario, write_backtest
+    from planner.evaluate.baselines import read_past_visits
+    from planner.runfolder import RunFolderWriter
+
+    scenario = source if isinstance(source, Scenario) else load_scenario(source)
+    past = read_past_visits(past_visits, scenario.terminals) if past_visits else None
+    result = backtest_scenario(scenario, weeks, options=options or PlanOptions(),
+                               past_visits=past, progress=progress)
+    with RunFolderWriter(Path(out_dir)) as writer:
+        write_backtest(writer, result)
+    return result
+
+
+def run_compare(source: str | Path | Scenario, out_dir: str | Path, *,
+                sets: list[str] | tuple[str, ...] = (),
+                files: list[str | Path] | tuple[str | Path, ...] = (),
+                options: PlanOptions | None = None) -> Any:
+    """Re-plan what-if variants on the base's demand paths, price all on common out-of-sample
+    paths, and write the comparison tables and chart to a run folder."""
+    from planner.compare import compare_scenario, parse_variants, write_compare
+    from planner.runfolder import RunFolderWriter
+
+    variants = parse_variants(sets, files)  # bad overrides fail before any forecasting
+    scenario = source if isinstance(source, Scenario) else load_scenario(source)
+    result = compare_scenario(scenario, variants, options=options or PlanOptions())
+    with RunFolderWriter(Path(out_dir)) as writer:
+        write_compare(writer, result)
+    return result
