@@ -315,3 +315,58 @@ def test_write_report_into_a_run_folder(small, tmp_path):
 
 def test_same_run_gives_the_same_report(small):
     assert render_report(small) == render_report(small)
+
+
+def test_backtest_and_what_if_results_of_their_stages(small):
+    """The results of the backtest and of the what-if comparison are shown as they come
+    (frames built here with the columns documented in planner.evaluate.backtest and
+    planner.compare; the backtest result is read by its fields, so a stand-in with those
+    fields serves)."""
+    from dataclasses import dataclass, field
+
+    from planner.compare import CompareResult
+
+    @dataclass(frozen=True)
+    class BacktestResult:
+        table: pd.DataFrame
+        daily: pd.DataFrame
+        terminals: pd.DataFrame
+        summary: dict = field(default_factory=dict)
+
+    dates = pd.date_range("2026-10-05", periods=14, freq="D")
+    policies = {"planner": "planner (champion forecast)", "fixed_weekdays":
+                "fixed weekdays, fill to limit", "days_of_cover": "days of cover"}
+    table = pd.DataFrame({"policy": [*policies, "perfect_foresight"],
+                          "label": [*policies.values(), "perfect-foresight bound"],
+                          "total": [900.0, 1200.0, 1000.0, 700.0],
+                          "dry_days": [1, 4, 2, np.nan],
+                          "ratio_to_bound": [900 / 700, 1200 / 700, 1000 / 700, 1.0],
+                          "saving_vs_best_baseline": [0.1, -0.2, 0.0, 0.3]})
+    daily = pd.DataFrame([(p, d, 10.0 + i) for i, p in enumerate(policies) for d in dates],
+                         columns=["policy", "date", "cost"])
+    terminals = pd.DataFrame([(p, t, 100.0) for p in policies
+                              for t in small.problem.terminal_ids],
+                             columns=["policy", "terminal_id", "total"])
+    backtest = BacktestResult(table=table, daily=daily, terminals=terminals,
+                              summary={"headline": ["Backtest over 2 weeks: planner 900 EUR."]})
+    variants = pd.DataFrame({"variant": ["base", "crews Sat = 0"],
+                             "changes": ["", "depots.Brenholm.Sat = 0"],
+                             "expected_cost": [8000.0, 8300.0], "cost_delta": [0.0, 300.0],
+                             "cost_delta_low": [0.0, 250.0], "cost_delta_high": [0.0, 350.0],
+                             "cost_delta_share": [0.0, 0.0375],
+                             "mean_dry_probability": [0.02, 0.03]})
+    compare = CompareResult(table=variants, terminals=pd.DataFrame(), summary={
+        "headline": ["crews Sat = 0: expected cost +300 EUR (+250 … +350)"]}, plans={},
+        base_name="base", currency="EUR")
+    text = render_report(small, backtest=backtest, comparison=compare)
+    b0 = text.index("<section id='backtest'>")
+    bt = text[b0:text.index("</section>", b0)]
+    assert "Backtest over 2 weeks: planner 900 EUR." in bt
+    assert "fixed weekdays, fill to limit" in bt and "days of cover" in bt
+    assert "128.6 %" not in bt and "1.286" in bt      # a ratio, not a share
+    assert "10.0 %" in bt                               # saving against the best baseline
+    assert bt.count("data:image/svg+xml;base64,") == 1  # cumulative cost per policy
+    w0 = text.index("<section id='what-if'>")
+    wi = text[w0:text.index("</section>", w0)]
+    assert "crews Sat = 0: expected cost +300 EUR" in wi and "3.8 %" in wi
+    assert wi.count("data:image/svg+xml;base64,") == 1

@@ -126,30 +126,35 @@ def as_evaluation(obj: Any) -> Evaluation | None:
     name_col, total_col = _pick(f, _NAME_COLUMNS), _pick(f, _TOTAL_COLUMNS)
     if name_col is None or total_col is None:
         return None
-    out = pd.DataFrame({"name": f[name_col].astype(str).to_numpy(),
+    label_col = _pick(f, ("label",))
+    shown = f[label_col].fillna(f[name_col]) if label_col and label_col != name_col \
+        else f[name_col]
+    out = pd.DataFrame({"name": shown.astype(str).to_numpy(),
                         "total": pd.to_numeric(f[total_col], errors="coerce").to_numpy()})
     kind_col = _pick(f, ("kind", "type", "role"))
     if kind_col is not None:
         out["kind"] = f[kind_col].astype(str).str.lower().to_numpy()
     else:
-        out["kind"] = [_kind(n) for n in out["name"]]
+        out["kind"] = [_kind(n) for n in f[name_col].astype(str)]
     for p in PARTS + ("dry_probability",):
         c = _pick(f, (p,))
         if c is not None:
             out[p] = pd.to_numeric(f[c], errors="coerce").to_numpy()
     out = out[np.isfinite(out["total"].astype(float))].reset_index(drop=True)
-    order = {"plan": 0, "baseline": 1, "bound": 2}
+    order = {"plan": 0, "other": 1, "baseline": 2, "bound": 3}
     out = out.sort_values(["kind", "total"], key=lambda s: s.map(order).fillna(1)
                           if s.name == "kind" else s, kind="stable", ignore_index=True)
     return Evaluation(out, _note_of(obj))
 
 
 def _kind(name: str) -> str:
-    n = name.lower()
+    n = name.lower().strip()
     if "perfect" in n or "bound" in n:
         return "bound"
-    if "plan" in n and "baseline" not in n:
+    if n in ("plan", "planner", "the plan", "this plan") or n.startswith("planner ("):
         return "plan"
+    if "plan" in n:          # another planner set-up (e.g. on a naive forecast): not a baseline
+        return "other"
     return "baseline"
 
 
@@ -224,12 +229,49 @@ def _tables_of(obj: Any) -> tuple[list, str]:
     return tables, _note_of(obj)
 
 
+BACKTEST_COLUMNS = ("label", "total", "carry", "visit", "handling", "dry_penalty",
+                    "shortfall_penalty", "visits", "emergency_visits", "dry_days",
+                    "crew_overrun_days", "ratio_to_bound", "saving_vs_best_baseline")
+COMPARE_COLUMNS = ("variant", "changes", "expected_cost", "cost_delta", "cost_delta_low",
+                   "cost_delta_high", "cost_delta_share", "visits", "load_total", "dry_days",
+                   "mean_dry_probability", "terminals_over_target", "status", "gap")
+
+
+def _headline(obj: Any) -> str:
+    summary = getattr(obj, "summary", None)
+    lines = summary.get("headline") if isinstance(summary, Mapping) else None
+    if isinstance(lines, (list, tuple)):
+        return " ".join(str(x) for x in lines)
+    return _note_of(obj)
+
+
 def as_backtest(obj: Any) -> TablesView | None:
-    """Read a backtest result (see the module doc)."""
+    """Read a backtest result (see the module doc); a
+    :class:`planner.evaluate.backtest.BacktestResult` shows its policy table, the cumulative
+    cost per policy over the window and its headline."""
     if obj is None:
         return None
     if isinstance(obj, TablesView):
         return obj
+    table, daily = getattr(obj, "table", None), getattr(obj, "daily", None)
+    if isinstance(table, pd.DataFrame) and isinstance(daily, pd.DataFrame) \
+            and "policy" in table and {"policy", "date", "cost"} <= set(daily.columns):
+        labels = dict(zip(table["policy"], table.get("label", table["policy"])))
+        wide = daily.pivot_table(index="date", columns="policy", values="cost",
+                                 aggfunc="sum").sort_index().cumsum()
+        series = (list(wide.index), {str(labels.get(c, c)): wide[c].to_numpy()
+                                     for c in wide.columns},
+                  "cumulative cost over the window, per policy")
+        cols = [c for c in BACKTEST_COLUMNS if c in table]
+        tables = [("Policies over the window", table[cols].rename(columns={"label": "policy"}))]
+        per_terminal = getattr(obj, "terminals", None)
+        if isinstance(per_terminal, pd.DataFrame) and {"policy", "terminal_id", "total"} \
+                <= set(per_terminal.columns):
+            pivot = per_terminal.pivot_table(index="terminal_id", columns="policy",
+                                             values="total", aggfunc="sum")
+            pivot.columns = [str(labels.get(c, c)) for c in pivot.columns]
+            tables.append(("Cost per terminal and policy", pivot.reset_index()))
+        return TablesView(tables, _headline(obj), series=series)
     tables, note = _tables_of(obj)
     series = None
     for title, f in tables:
@@ -245,11 +287,20 @@ def as_backtest(obj: Any) -> TablesView | None:
 
 
 def as_comparison(obj: Any) -> TablesView | None:
-    """Read a what-if comparison (see the module doc)."""
+    """Read a what-if comparison (see the module doc); a
+    :class:`planner.compare.CompareResult` shows its variant table (cost differences with
+    their intervals), a bar chart of the expected cost per variant and its headline."""
     if obj is None:
         return None
     if isinstance(obj, TablesView):
         return obj
+    table = getattr(obj, "table", None)
+    if isinstance(table, pd.DataFrame) and {"variant", "expected_cost"} <= set(table.columns):
+        base = getattr(obj, "base_name", None) or str(table["variant"].iloc[0])
+        cols = [c for c in COMPARE_COLUMNS if c in table]
+        totals = (table["variant"].astype(str).tolist(),
+                  pd.to_numeric(table["expected_cost"], errors="coerce").tolist(), base)
+        return TablesView([("Variants", table[cols])], _headline(obj), totals=totals)
     tables, note = _tables_of(obj)
     totals = None
     for title, f in tables:

@@ -728,16 +728,22 @@ def _frame_table(frame: pd.DataFrame, ctx: _Context, max_rows: int = 400) -> str
 
 
 def _auto_number(col: str, v: Any) -> str:
+    """A number of a result table, formatted by what its column name says it is."""
     if v is None or (isinstance(v, float) and not np.isfinite(v)):
         return "—"
     c = col.lower()
-    if any(w in c for w in ("probability", "share", "coverage", "saving_share", "rate", "gap")):
-        return _pct(float(v)) if abs(float(v)) <= 1.5 else f"{float(v):,.3g}"
-    if any(w in c for w in ("p_value", "pvalue", "statistic", "mase", "smape", "score")):
-        return f"{float(v):,.3f}"
-    if isinstance(v, (int, np.integer)):
-        return f"{int(v):,}"
-    return _money(v) if abs(float(v)) >= 10 else f"{float(v):,.3f}"
+    x = float(v)
+    if any(w in c for w in ("probability", "share", "coverage", "saving", "gap")):
+        return _pct(x)
+    if any(w in c for w in ("ratio", "p_value", "pvalue", "statistic", "mase", "smape",
+                            "score")):
+        return f"{x:,.3f}"
+    if isinstance(v, (int, np.integer)) or (x.is_integer() and any(
+            w in c for w in ("visits", "days", "count", "terminals", "weeks"))):
+        return f"{int(round(x)):,}"
+    if "dry_days" in c:
+        return f"{x:,.2f}"
+    return _money(x) if abs(x) >= 10 else f"{x:,.3f}"
 
 
 def _measure(col: str, v: Any) -> str:
@@ -941,7 +947,7 @@ def _page(ctx: _Context, sections: list[Section]) -> str:
     name = str(s.get("scenario", getattr(ctx.scenario, "name", "")))
     first = _date_long(ctx.dates[0]) if len(ctx.dates) else ""
     last = _date_long(ctx.dates[-1]) if len(ctx.dates) else ""
-    toc = "".join(f"<a href='#{x.id}'>{esc(x.title)}</a>" for x in sections)
+    toc = " ".join(f"<a href='#{x.id}'>{esc(x.title)}</a>" for x in sections)
     body = "".join(f"<section id='{x.id}'><h2>{esc(x.title)}</h2>{x.body}</section>"
                    for x in sections)
     return (
