@@ -10,7 +10,6 @@ import re
 import stat
 from dataclasses import replace
 from html.parser import HTMLParser
-from pathlib import Path
 
 import numpy as np
 import pandas as pd

@@ -233,7 +233,7 @@ def _summary_section(ctx: _Context, evaluation: Evaluation | None) -> Section:
                     ctx.currency)),
         ("Best lower bound", _money_cur(bound, ctx.currency) if _finite(bound)
          else "none proven"),
-        ("Optimality gap", _pct(gap, 2) if _finite(gap) else "unknown (no bound)"),
+        ("Optimality gap", _pct(gap, 3) if _finite(gap) else "unknown (no bound)"),
         ("Solve time", f"{float(solver.get('time_s', getattr(result, 'time_s', 0.0))):,.1f} s"),
     ], "solver")
 
@@ -362,8 +362,10 @@ def _depot_plan_section(ctx: _Context) -> Section:
         "The plan day by day for each depot: which terminals a crew visits, the cash it loads, "
         "the cash expected back from the machine (the residual, mean over the demand paths), "
         "the dry risk (share of demand paths on which the terminal runs dry before its next "
-        "visit) and why the visit is planned. <span class='over-key'>▲ over target</span> "
-        f"marks a dry risk above the service target of {_pct(ctx.target)}.")
+        "visit; for a terminal's last visit in the horizon, until the end of the days "
+        "planned, which reach past the horizon) and why the visit is planned. "
+        "<span class='over-key'>▲ over target</span> marks a dry risk above the service "
+        f"target of {_pct(ctx.target)}.")
     blocks = []
     by_depot = {d: g for d, g in plan.groupby("depot", sort=False)} if len(plan) else {}
     for k, depot in enumerate(ctx.depots):

@@ -91,7 +91,8 @@ def write_sample_scenario(folder: Path, *, terminals: int = 6, seed: int = 7,
         .to_csv(folder / "dispense.csv", index=False)
     pd.DataFrame(committed, columns=["terminal_id", "date", "load"]) \
         .to_csv(folder / "committed.csv", index=False)
-    (folder / "scenario.toml").write_text(f"""name = "Kestrel Valley Bank - report preview (invented data)"
+    name = "Kestrel Valley Bank - report preview (invented data)"
+    (folder / "scenario.toml").write_text(f"""name = "{name}"
 currency = "EUR"
 start_date = {start:%Y-%m-%d}
 
