@@ -30,6 +30,8 @@ class PlanOptions:
     time_limit_s: float = 60.0
     tail_days: int = TAIL_DAYS
     origins: int = 8
+    evaluate: bool = True
+    report: bool = True
 
 
 @dataclass(frozen=True)
@@ -98,6 +100,8 @@ class PlanRun:
     orders: pd.DataFrame
     costs: pd.DataFrame
     summary: dict[str, Any]
+    evaluation: pd.DataFrame | None = None
+    out_of_sample: Any = None
     run_folder: Path | None = None
 
     @property
@@ -157,8 +161,65 @@ def plan_scenario(source: str | Path | Scenario, *, options: PlanOptions | None 
     costs = result.ledger.parts()
     costs.insert(0, "terminal_id", list(problem.terminal_ids))
     summary = _summary(scenario, options, forecast, problem, result, plan, costs)
+    evaluation, check = None, None
+    if options.evaluate:
+        evaluation, check = evaluate_plan(scenario, clean, problem, result, options)
+        summary["out_of_sample"] = check.summary
+        summary["routines"] = json_records(evaluation)
     return PlanRun(scenario, options, clean, forecast, problem, result, plan, orders, costs,
-                   summary)
+                   summary, evaluation, check)
+
+
+def evaluate_plan(scenario: Scenario, clean: Any, problem: Any, result: Any,
+                  options: PlanOptions) -> tuple[pd.DataFrame, Any]:
+    """Price the plan, the baseline routines and the perfect-foresight bound on the same
+    fresh demand paths (drawn with a seed independent of the optimizer's).
+
+    Returns the routine table (one row per routine: ``routine``, ``kind`` plan | baseline |
+    bound, ``total`` and its parts in currency over horizon + tail days, ``dry_probability``
+    = mean over terminals of the share of fresh paths dry within the horizon,
+    ``terminals_over_target``, ``visits`` in the horizon) and the out-of-sample check.
+    """
+    from planner.evaluate import days_of_cover, fixed_weekdays, out_of_sample_check, plan_ledger
+    from planner.evaluate.bound import perfect_foresight_arrays
+
+    check = out_of_sample_check(scenario, clean, problem, result, jobs=options.jobs,
+                                origins=options.origins)
+    fresh = check.demand
+    horizon = problem.horizon_days
+    target = problem.max_dry_probability
+    rows = []
+    routines = [("planner", "plan", (result.visits, result.loads)),
+                ("fixed weekdays Mon+Thu, filled to the limit", "baseline",
+                 fixed_weekdays(problem)),
+                ("days of cover (3-day trigger, 7 days + 25 %)", "baseline",
+                 days_of_cover(problem))]
+    for name, kind, (visits, loads) in routines:
+        ledger = plan_ledger(problem, visits, loads, fresh)
+        parts = ledger.parts()
+        dry = ledger.dry_probability(horizon)
+        rows.append({"routine": name, "kind": kind,
+                     **{c: float(parts[c].sum()) for c in parts.columns},
+                     "dry_probability": float(dry.mean()),
+                     "terminals_over_target": int((dry > target + 1e-12).sum()),
+                     "visits": int(np.asarray(visits)[:, :horizon].sum())})
+    bound = perfect_foresight_arrays(
+        demand=fresh, start_balance=problem.start_balance, limit=problem.limit,
+        bundle=problem.bundle, allowed=problem.allowed, fixed_load=problem.fixed_load,
+        visit_fee=problem.visit_fee, rates=problem.rates, mode=problem.mode)
+    rows.append({"routine": "perfect-foresight bound", "kind": "bound",
+                 "total": float(bound.expected_cost().sum())})
+    return pd.DataFrame(rows), check
+
+
+def json_records(frame: pd.DataFrame) -> list[dict[str, Any]]:
+    """A frame as JSON-ready records (floats rounded to cents, NaN dropped)."""
+    out = []
+    for rec in frame.to_dict(orient="records"):
+        out.append({k: (round(v, 4 if "probability" in k else 2) if isinstance(v, float)
+                        else v) for k, v in rec.items()
+                    if not (isinstance(v, float) and np.isnan(v))})
+    return out
 
 
 def run_plan(source: str | Path | Scenario, out_dir: str | Path, *,
@@ -171,7 +232,15 @@ def run_plan(source: str | Path | Scenario, out_dir: str | Path, *,
         writer.write_csv("plan.csv", _rounded(run.plan))
         writer.write_csv("orders.csv", _rounded(run.orders))
         writer.write_csv("costs.csv", _rounded(run.costs))
+        if run.out_of_sample is not None:
+            writer.write_csv("out_of_sample.csv", _rounded(run.out_of_sample.frame))
+            writer.write_csv("routines.csv", _rounded(run.evaluation))
         writer.write_json("summary.json", run.summary)
+        if run.options.report:
+            from planner.report import write_plan_xlsx, write_report
+
+            write_report(run, writer)
+            write_plan_xlsx(run, writer)
     return replace(run, run_folder=Path(out_dir))
 
 
