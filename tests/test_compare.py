@@ -3,6 +3,7 @@ common demand paths (identical variant → delta exactly zero; a fee increase ne
 planned cost)."""
 from __future__ import annotations
 
+from dataclasses import replace
 from pathlib import Path
 
 import numpy as np
@@ -105,3 +106,77 @@ def test_variant_files_use_the_scenario_keys(tmp_path, tiny):
         parse_variants([], [])
     names = [v.name for v in parse_variants(["costs.visit_fee=+10%"], [path])]
     assert names == ["costs.visit_fee=+10%", "new courier contract"]
+
+
+@pytest.fixture(scope="module")
+def common(tiny):
+    """One forecast and one set of out-of-sample paths of the tiny scenario, shared by tests."""
+    from planner.cleaning import clean_history
+    from planner.evaluate.simulate import fresh_paths, fresh_seed
+    from planner.forecast import forecast_scenario
+    from planner.optimize import build_problem
+    from planner.pipeline import PlanOptions
+
+    options = PlanOptions(path_count=40, origins=2, time_limit_s=30)
+    scenario = replace(tiny, path_count=40)
+    clean = clean_history(scenario)
+    forecast = forecast_scenario(scenario, clean, horizon_days=scenario.horizon_days + 7,
+                                 path_count=40, seed=scenario.seed, origins=2)
+    problem = build_problem(scenario, forecast.paths, forecast.dates, tail_days=7)
+    fresh = fresh_paths(scenario, clean, problem, seed=fresh_seed(scenario.seed), path_count=60,
+                        origins=2)
+    return scenario, options, forecast, fresh
+
+
+def test_a_variant_identical_to_the_base_has_a_delta_of_exactly_zero(common):
+    from planner.compare import compare_scenario
+
+    scenario, options, forecast, fresh = common
+    same = variant_from_sets(f"costs.carry_rate_annual={scenario.costs.carry_rate_annual}")
+    result = compare_scenario(scenario, [same], options=options, forecast=forecast,
+                              fresh=fresh)
+    row = result.table.set_index("variant").loc[same.name]
+    for col in ("cost_delta", "cost_delta_low", "cost_delta_high", "in_sample_delta",
+                "dry_days_delta", "dry_days_delta_low", "dry_days_delta_high", "visits_delta"):
+        assert row[col] == 0.0, col
+    base, variant = result.plans["base"], result.plans[same.name]
+    np.testing.assert_array_equal(base[0], variant[0])
+    np.testing.assert_array_equal(base[1], variant[1])
+
+
+def test_a_fee_increase_never_lowers_the_planned_cost(common):
+    from planner.compare import compare_scenario
+
+    scenario, options, forecast, fresh = common
+    variants = [variant_from_sets(t) for t in (
+        "costs.visit_fee=+10%", "costs.visit_fee=+60%", "costs.handling_per_1000=+50%",
+        "costs.visit_fee_by_weekday.Sat=+100", "costs.dry_day_penalty=+100%",
+        "costs.visit_fee=+10%,costs.handling_per_1000=+10%")]
+    result = compare_scenario(scenario, variants, options=options, forecast=forecast,
+                              fresh=fresh)
+    table = result.table.set_index("variant")
+    base = table.loc["base", "expected_cost_in_sample"]
+    for v in variants:
+        assert table.loc[v.name, "expected_cost_in_sample"] >= base, v.name
+    # and a larger increase never costs less than a smaller one
+    assert table.loc["costs.visit_fee=+60%", "expected_cost_in_sample"] >= \
+        table.loc["costs.visit_fee=+10%", "expected_cost_in_sample"]
+    # the interval brackets the mean, and the out-of-sample cost is priced on common paths
+    assert (table["cost_delta_low"] <= table["cost_delta"] + 1e-9).all()
+    assert (table["cost_delta"] <= table["cost_delta_high"] + 1e-9).all()
+    assert result.summary["out_of_sample_paths"]["count"] == 60
+
+
+def test_comparison_run_folder_files(common, tmp_path):
+    from planner.compare import compare_scenario, write_compare
+    from planner.runfolder import RunFolderWriter
+
+    scenario, options, forecast, fresh = common
+    result = compare_scenario(scenario, [variant_from_sets("service.max_dry_probability=0.01")],
+                              options=options, forecast=forecast, fresh=fresh)
+    with RunFolderWriter(tmp_path / "cmp") as writer:
+        write_compare(writer, result)
+    names = sorted(p.name for p in (tmp_path / "cmp").iterdir())
+    assert names == ["compare.csv", "compare.json", "compare.png", "compare_terminals.csv"]
+    assert (tmp_path / "cmp" / "compare.png").read_bytes()[:4] == b"\x89PNG"
+    assert result.summary["headline"][0].startswith("service.max_dry_probability=0.01")

@@ -154,3 +154,31 @@ def test_emergency_fee_on_any_day_only_lowers_the_bound():
     # with a fee no lower than any visit fee, every emergency-free plan is still allowed
     huge = perfect_foresight(problem, anyday_fee=1e9).cost
     np.testing.assert_allclose(huge, plain)
+
+
+def test_the_optimizer_plan_never_beats_the_bound_on_any_path():
+    from planner.optimize import solve_plan
+
+    rng = np.random.default_rng(17)
+    for _ in range(3):
+        problem = random_problem(rng, terminals=3, paths=15, days=10, horizon=7)
+        result = solve_plan(problem, time_limit_s=30)
+        bound = perfect_foresight(problem).cost
+        cost = plan_ledger(problem, result.visits, result.loads).total()
+        assert (bound <= cost + 1e-9).all()
+        # and so on average: the bound is below the optimizer's expected cost
+        assert bound.mean(axis=1).sum() <= result.objective + 1e-9
+
+
+@pytest.mark.parametrize("mode", ["swap", "topup"])
+def test_the_reference_milp_plan_never_beats_the_bound_on_any_path(mode):
+    from planner.optimize.monolithic import solve_monolithic
+
+    rng = np.random.default_rng(19)
+    for _ in range(2):
+        problem = random_problem(rng, terminals=2, paths=5, days=5, horizon=4, mode=mode)
+        visits, loads, objective, status = solve_monolithic(problem, time_limit_s=60)
+        assert status == "optimal"
+        bound = perfect_foresight(problem).cost
+        cost = plan_ledger(problem, visits, loads).total()
+        assert (bound <= cost + 1e-9).all()

@@ -66,3 +66,28 @@ def test_terminals_over_the_target_on_fresh_paths_are_flagged():
     assert check.summary["paths"] == 200 and check.summary["seed"] == 123
     p = check.frame["dry_probability"].to_numpy()
     np.testing.assert_allclose(check.frame["dry_probability_se"], np.sqrt(p * (1 - p) / 200))
+
+
+def test_the_simulator_reproduces_the_optimizers_own_cost_on_its_paths():
+    from planner.optimize import solve_plan
+    from planner.optimize.monolithic import solve_monolithic
+
+    problem = small_problem(paths=12)
+    result = solve_plan(problem, time_limit_s=30)
+    check = check_plan(problem, result.visits, result.loads, problem.demand)
+    assert check.frame["expected_cost"].sum() == pytest.approx(result.objective, rel=1e-12)
+    np.testing.assert_allclose(check.frame["dry_probability"], result.dry_probability)
+    np.testing.assert_allclose(plan_ledger(problem, result.visits, result.loads).total(),
+                               result.ledger.total(), rtol=1e-12)
+    # the reference MILP states the accounting as constraints; its own objective value is
+    # reproduced by simulating its plan (to the solver's tolerances)
+    small = problem.subset([0, 1])
+    small = type(small)(**{**small.__dict__, "demand": small.demand[:, :6, :6],
+                           "dates": small.dates[:6], "horizon_days": 4,
+                           "allowed": small.allowed[:, :6], "fixed_load": small.fixed_load[:, :6],
+                           "visit_fee": small.visit_fee[:, :6],
+                           "crew_limit": small.crew_limit[:, :6]})
+    visits, loads, objective, status = solve_monolithic(small, time_limit_s=60)
+    assert status == "optimal"
+    cost = plan_ledger(small, visits, loads).expected_cost().sum()
+    assert cost == pytest.approx(objective, rel=1e-6)
