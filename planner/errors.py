@@ -13,7 +13,8 @@ class Problem:
     """One thing wrong with the input, located as precisely as we can.
 
     ``line`` is the line number in the file as a text editor shows it (the CSV header is line 1),
-    or ``None`` when the problem concerns the whole file or a setting.
+    or ``None`` when the problem concerns the whole file. ``column`` is the CSV column or, in a
+    TOML file, the dotted name of the setting (``planning.horizon_days``).
     """
 
     file: str
@@ -27,7 +28,8 @@ class Problem:
         if self.line is not None:
             where += f", line {self.line}"
         if self.column is not None:
-            where += f", column '{self.column}'"
+            kind = "setting" if self.file.endswith(".toml") else "column"
+            where += f", {kind} '{self.column}'"
         return f"{where}: {self.problem}. Fix: {self.fix}"
 
 

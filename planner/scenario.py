@@ -253,7 +253,7 @@ def _read_text(root: Path, file: str, notices: list[str], *, what: str,
         if not must_exist:
             return None
         raise InputError(Problem(file, f"file not found in the scenario folder {root.name}",
-                                 f"create {file} ({what})"))
+                                 f"create {file} with {what}"))
     try:
         raw = path.read_bytes()
     except OSError as exc:
@@ -511,11 +511,18 @@ def _numbers(table: _Table, col: str, problems: list[Problem], *, what: str,
                lambda i: f"{what} {_show(cells.iloc[i])} is not a finite number",
                f"write the {what} as an ordinary number, e.g. 12000")
     decimal = "," if table.decimal_comma else "."
-    table.flag(problems, ambiguous, col,
-               lambda i: f"{what} {_show(cells.iloc[i])} is ambiguous in a file separated by "
-                         f"{_SEPARATOR_NAMES[table.separator]} "
-                         f"(the decimal mark is '{decimal}' here)",
-               "write it without thousands separators and with the file's decimal mark")
+    if table.decimal_comma:
+        table.flag(problems, ambiguous, col,
+                   lambda i: f"{what} {_show(cells.iloc[i])} has a decimal point, but this "
+                             "file writes decimal commas",
+                   "write it with a decimal comma, like the other numbers of the file")
+    else:
+        table.flag(problems, ambiguous, col,
+                   lambda i: f"{what} {_show(cells.iloc[i])} is ambiguous in a file "
+                             f"separated by {_SEPARATOR_NAMES[table.separator]}: "
+                             f"{float(cells.iloc[i]):g} or "
+                             f"{float(cells.iloc[i].replace('.', '')):g}?",
+                   "write it without a thousands separator")
     table.flag(problems, bad, col,
                lambda i: f"{what} {_show(cells.iloc[i])} does not parse as a number",
                f"write a plain number such as 12000{'' if decimal == '.' else ' or 12000,50'} "
@@ -525,7 +532,8 @@ def _numbers(table: _Table, col: str, problems: list[Problem], *, what: str,
         word = "greater than" if strict else "at least"
         table.flag(problems, low, col,
                    lambda i: f"{what} must be {word} {minimum:g}, got {cells.iloc[i]}",
-                   f"write a {what} {word} {minimum:g}")
+                   f"write a number {'greater than' if strict else 'of at least'} "
+                   f"{minimum:g}")
         values[low] = np.nan
     return values
 
@@ -556,19 +564,17 @@ def _dates(table: _Table, col: str, problems: list[Problem], notices: list[str])
     return parsed.where(~odd)
 
 
-def _text_ids(table: _Table, col: str, what: str, problems: list[Problem], *,
-              unique: bool) -> pd.Series:
-    """Check an id column: none empty and, if ``unique``, none twice."""
+def _text_ids(table: _Table, col: str, what: str, item: str,
+              problems: list[Problem]) -> pd.Series:
+    """Check an id column: none empty, none twice (one row per ``item``)."""
     ids = table.frame[col]
     table.flag(problems, ids == "", col, f"{what} is empty", f"give every row a {what}")
-    if unique:
-        dup = ids.duplicated(keep="first") & (ids != "")
-        first = ids.drop_duplicates(keep="first")
-        first_line = pd.Series(table.lines[first.index], index=first.to_numpy())
-        table.flag(problems, dup, col,
-                   lambda i: f"{what} {_show(ids.iloc[i])} appears twice (first on line "
-                             f"{first_line[ids.iloc[i]]})",
-                   "keep one row per " + what.split()[0])
+    dup = ids.duplicated(keep="first") & (ids != "")
+    first = ids.drop_duplicates(keep="first")
+    first_line = pd.Series(table.lines[first.index], index=first.to_numpy())
+    table.flag(problems, dup, col,
+               lambda i: f"{what} {_show(ids.iloc[i])} appears twice (first on line "
+                         f"{first_line[ids.iloc[i]]})", f"keep one row per {item}")
     return ids
 
 
@@ -665,8 +671,25 @@ _EVENT_KEYS = ("date", "lift", "name")
 _PAYDAY_RULES = ("last_business_day", "first_business_day")
 _TYPE_WORDS = {str: "text in double quotes", int: "a whole number", dict: "a table",
                list: "a list in [ ]", _NUMBER: "a number", _DATE: "a date like 2026-12-07"}
-_EXAMPLES = {str: '"text"', int: "14", dict: "{ ... }", list: "[ ... ]", _NUMBER: "0.05",
-             _DATE: "2026-12-07"}
+_EXAMPLES = {  # what a fix suggests writing, when the default cannot serve as example
+    "name": '"Kestrel Valley Bank"', "currency": '"EUR"', "start_date": "2026-12-07",
+    "calendar.holidays": '"DE"', "calendar.subdivision": '"BY"',
+    "calendar.events": "[{ date = 2026-12-24, lift = 1.3 }]",
+    "costs.carry_rate_annual": "0.05", "costs.visit_fee": "120",
+    "costs.visit_fee_by_weekday": "{ Sat = 150 }", "costs.emergency_visit_fee": "400",
+    "costs.dry_day_penalty": "600"}
+
+
+def _example(key: str) -> str:
+    """A valid TOML value for a setting, as shown in fixes."""
+    if key in _EXAMPLES:
+        return _EXAMPLES[key]
+    default = _SETTINGS[key][1]
+    if isinstance(default, str):
+        return f'"{default}"'
+    if isinstance(default, list):
+        return "[" + ", ".join(f'"{v}"' for v in default) + "]"
+    return str(default)
 
 
 def _type_ok(value: Any, kind: Any) -> bool:
@@ -753,8 +776,8 @@ def _read_settings(root: Path, notices: list[str]) -> dict[str, Any]:
     """Read scenario.toml into a flat dict of checked values (dotted keys), plus the typed
     ``calendar`` and ``costs`` and the parsed ``start_date`` (None: day after the history)."""
     file = SETTINGS_FILE
-    text = _read_text(root, file, notices, what="the settings (see README, 'The scenario "
-                                                "folder')")
+    text = _read_text(root, file, notices, what="the settings described in the README, "
+                                                "'The scenario folder'")
     try:
         data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
@@ -771,7 +794,7 @@ def _read_settings(root: Path, notices: list[str]) -> dict[str, Any]:
     values: dict[str, Any] = {}
     seen: set[str] = set()
     _walk_settings(data, "", values, seen, report)
-    for key, (kind, default) in _SETTINGS.items():
+    for key, (_, default) in _SETTINGS.items():
         if key in values:
             continue
         if default is not _REQUIRED:
@@ -780,7 +803,7 @@ def _read_settings(root: Path, notices: list[str]) -> dict[str, Any]:
             table, _, leaf = key.rpartition(".")
             place = f"under [{table}]" if table else "at the top, above the first [section]"
             report(key, f"required setting '{key}' is missing",
-                   f"add {leaf} = {_EXAMPLES[kind]} {place}")
+                   f"add {leaf} = {_example(key)} {place}")
 
     def check(key: str, ok: Callable[[Any], bool], problem: str, fix: str) -> None:
         if key in values and values[key] is not None and not ok(values[key]):
@@ -794,7 +817,7 @@ def _read_settings(root: Path, notices: list[str]) -> dict[str, Any]:
     if values.get("start_date") is not None:
         start = _parse_date(values["start_date"])
         if start is not None and not YEARS[0] <= start.year <= YEARS[1]:
-            report("start_date", f"'start_date' {start:%Y-%m-%d} lies outside the years "
+            report("start_date", f"'start_date' {values['start_date']} lies outside the years "
                                  f"{YEARS[0]}–{YEARS[1]}", "correct the year")
         elif start is None:
             report("start_date", f"'start_date' {_show(values['start_date'])} is not a date",
@@ -866,7 +889,7 @@ def _walk_settings(table: dict[str, Any], prefix: str, values: dict[str, Any],
                 values[dotted] = value
             else:
                 report(dotted, f"'{dotted}' must be {_TYPE_WORDS[kind]}, got {_show(value)}",
-                       f"write {key} = {_EXAMPLES[kind]}")
+                       f"write {key} = {_example(dotted)}")
         elif dotted in _TABLES:
             if isinstance(value, dict):
                 _walk_settings(value, dotted + ".", values, seen, report)
@@ -904,8 +927,9 @@ def _calendar(values: dict[str, Any], report: Callable[..., None]) -> CalendarSe
         try:
             holidays.country_holidays(country, subdiv=subdivision, years=2026)
         except (NotImplementedError, KeyError, ValueError) as exc:
-            report("calendar.holidays", f"calendar.holidays {_show(country)} (subdivision "
-                                        f"{_show(subdivision)}) is not known: {exc}",
+            sub = f" with subdivision {_show(subdivision)}" if subdivision else ""
+            report("calendar.holidays", f"calendar.holidays {_show(country)}{sub} is not "
+                                        f"known: {exc}",
                    "use an ISO 3166 country code in capitals such as \"DE\", \"FR\", \"GB\", "
                    "and a subdivision the holidays library lists")
     elif subdivision is not None:
@@ -962,7 +986,7 @@ def _read_depots(root: Path, notices: list[str]) -> pd.DataFrame:
     table = _read_csv(root, file, ["depot", "max_visits_per_day"], list(WEEKDAYS), notices)
     problems: list[Problem] = []
     frame = table.frame
-    names = _text_ids(table, "depot", "depot name", problems, unique=True)
+    names = _text_ids(table, "depot", "depot name", "depot", problems)
     out = pd.DataFrame(index=pd.Index(names, name="depot"))
     base = _crews(table, "max_visits_per_day", problems, empty_ok=False)
     for day in WEEKDAYS:
@@ -993,7 +1017,7 @@ def _read_terminals(root: Path, depots: pd.DataFrame, notices: list[str]) -> pd.
     table = _read_csv(root, file, required, ["site", "visit_fee"], notices)
     frame = table.frame
     problems: list[Problem] = []
-    ids = _text_ids(table, "terminal_id", "terminal_id", problems, unique=True)
+    ids = _text_ids(table, "terminal_id", "terminal_id", "terminal", problems)
     depot = frame["depot"]
     table.flag(problems, depot == "", "depot", "depot is empty",
                "name the terminal's depot as in depots.csv")

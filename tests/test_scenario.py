@@ -295,7 +295,10 @@ CASES = [
          None, None, "no row is dated before the first planning day 2026-01-05", where=D),
     # a ';'-separated file that writes '1.500' could mean 1.5 or 1500: refuse to guess
     case("semicolon-ambiguous", D, lambda t: cell(2, "amount", "8.100")(t).replace(",", ";"),
-         2, "amount", "ambiguous"),
+         2, "amount", "ambiguous in a file separated by ';': 8.1 or 8100?"),
+    case("decimal-point-in-comma-file", D,
+         lambda t: _european(t, thousands=False).replace("8470,00", "8470.5"), 3, "amount",
+         "'8470.5' has a decimal point, but this file writes decimal commas"),
 ]
 
 
@@ -321,6 +324,23 @@ def test_malformed_input_gets_one_clear_message(tiny_dir, edit_file, edit, file,
     assert result.exit_code == 2, result.output
     assert _one_line(str(problem)) in _one_line(result.output)
     assert "Traceback" not in result.output
+
+
+def test_message_names_file_line_column_problem_and_fix(rewrite_tiny, tiny_dir):
+    rewrite_tiny(D, cell(3, "amount", "-50"))
+    with pytest.raises(InputError) as info:
+        load_scenario(tiny_dir)
+    assert str(info.value) == ("dispense.csv, line 3, column 'amount': amount must be at least "
+                               "0, got -50. Fix: write a number of at least 0")
+
+
+def test_setting_message_names_line_and_setting(rewrite_tiny, tiny_dir):
+    rewrite_tiny(S, replace("horizon_days", "horizon_dayz"))
+    with pytest.raises(InputError) as info:
+        load_scenario(tiny_dir)
+    assert str(info.value) == (
+        f"scenario.toml, line {TOML['horizon_days']}, setting 'planning.horizon_dayz': unknown "
+        "setting 'planning.horizon_dayz'. Fix: did you mean 'planning.horizon_days'?")
 
 
 def test_missing_folder_is_an_input_error(tmp_path):
