@@ -157,3 +157,10 @@ def test_a_window_longer_than_the_history_is_an_input_error():
 
     with pytest.raises(InputError, match="at least 8 weeks of history"):
         backtest_scenario(load_scenario(TINY), 52)
+
+
+def test_compact_table_keeps_one_row_per_policy(short_backtest):
+    _, result = short_backtest
+    compact = result.compact()
+    assert len(compact) == len(result.table)
+    assert "ratio_to_bound" in compact.columns and "carry" not in compact.columns

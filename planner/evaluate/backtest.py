@@ -114,6 +114,13 @@ class BacktestResult:
     schedules: dict[str, tuple[np.ndarray, np.ndarray, np.ndarray]]
     summary: dict[str, Any] = field(default_factory=dict)
 
+    def compact(self) -> pd.DataFrame:
+        """The policy table with the columns a terminal has room for: ``label, total,
+        visits, emergency_visits, dry_days, crew_overrun_days, ratio_to_bound,
+        saving_vs_best_baseline``."""
+        return self.table[["label", "total", "visits", "emergency_visits", "dry_days",
+                           "crew_overrun_days", "ratio_to_bound", "saving_vs_best_baseline"]]
+
 
 # --------------------------------------------------------------------------------------------
 # Realised demand
@@ -200,6 +207,7 @@ class _PolicyState:
     dry_before: np.ndarray
     committed: pd.DataFrame
     weeks: list = field(default_factory=list)
+    solves: list = field(default_factory=list)     # (status, gap, seconds) per planned week
 
 
 def _committed_from(plan_visits: np.ndarray, plan_loads: np.ndarray, dates: pd.DatetimeIndex,
@@ -228,9 +236,10 @@ def backtest_scenario(scenario, weeks: int, *, options=None,
     value of a better forecast, measured on the realised demand). ``progress(text)`` is called
     once per week.
 
-    The CLI (``planner backtest SCENARIO --weeks N``) prints ``result.table`` (policy, total,
-    parts, visits, emergency visits, dry days, ratio to bound, saving) and the lines of
-    ``result.summary["headline"]``, and writes the run folder with :func:`write_backtest`.
+    The CLI (``planner backtest SCENARIO --weeks N``) prints ``result.compact()`` (policy,
+    total, visits, emergency visits, dry days, crew overruns, ratio to bound, saving; the full
+    ``result.table`` adds the cost parts) and the lines of ``result.summary["headline"]``, and
+    writes the run folder with :func:`write_backtest`.
     Raises :class:`~planner.errors.InputError` when the history is shorter than the window
     plus eight weeks of training.
     """
@@ -293,6 +302,7 @@ def backtest_scenario(scenario, weeks: int, *, options=None,
             if policy in (PLANNER, PLANNER_NAIVE):
                 result = solve_plan(problem, time_limit_s=options.time_limit_s)
                 plan = (result.visits, result.loads)
+                st.solves.append((result.status, float(result.gap), float(result.time_s)))
             else:
                 if trailing is None:
                     trailing = trailing_weekday_mean(clean.daily, ids, problem.dates,
@@ -421,6 +431,12 @@ def _collect(state, policies, baselines, bound, actual, dates, ids, terminals, t
                     "emergency_visits": int(planner["emergency_visits"]),
                     "ratio_to_bound": round(float(planner["ratio_to_bound"]), 4)},
     }
+    summary["solver"] = {
+        p: {"statuses": {str(k): int(v) for k, v in pd.Series(
+                [x[0] for x in state[p].solves]).value_counts().items()},
+            "max_gap": round(max(x[1] for x in state[p].solves), 6),
+            "time_s": round(sum(x[2] for x in state[p].solves), 1)}
+        for p in policies if state[p].solves}
     if best is not None:
         summary["best_baseline"] = {"policy": best["policy"], "total": round(float(best["total"]),
                                                                             2),
