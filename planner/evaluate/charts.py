@@ -42,6 +42,16 @@ def _figure(width: float, height: float, cols: int):
     return fig, np.atleast_1d(axes)
 
 
+def _money(ax, axis: str) -> None:
+    """Thousands as ``120k`` on a money axis, a few ticks only."""
+    from matplotlib.ticker import FuncFormatter, MaxNLocator
+
+    target = ax.xaxis if axis == "x" else ax.yaxis
+    target.set_major_locator(MaxNLocator(nbins=5))
+    target.set_major_formatter(FuncFormatter(
+        lambda v, _: f"{v / 1000:,.0f}k" if abs(v) >= 10000 else f"{v:,.0f}"))
+
+
 def _title(ax, text: str) -> None:
     ax.set_title(text, loc="left", fontsize=10, color=TEXT, fontweight="bold")
 
@@ -72,6 +82,7 @@ def backtest_chart(result, path: str | Path) -> None:
                  label="perfect-foresight bound")
     left.set_yticks(y, rows["label"].tolist(), fontsize=8, color=TEXT)
     left.xaxis.grid(True, color=RULE, linewidth=0.6)
+    _money(left, "x")
     left.set_xlabel(f"cost over the window ({result.summary.get('currency', '')})",
                     fontsize=8, color=MUTED)
     left.legend(fontsize=7, frameon=False, loc="lower right")
@@ -86,6 +97,7 @@ def backtest_chart(result, path: str | Path) -> None:
                    linestyle=style["linestyle"], markersize=3, markevery=7, linewidth=1.2,
                    label=label)
     right.yaxis.grid(True, color=RULE, linewidth=0.6)
+    _money(right, "y")
     right.set_ylabel("cumulative cost", fontsize=8, color=MUTED)
     right.legend(fontsize=7, frameon=False)
     import matplotlib.dates as mdates
@@ -122,6 +134,8 @@ def compare_chart(result, path: str | Path) -> None:
         ax.axvline(0.0, color=MUTED, linewidth=0.8)
         ax.set_yticks(y, table["variant"].tolist(), fontsize=8, color=TEXT)
         ax.xaxis.grid(True, color=RULE, linewidth=0.6)
+        if mid == "cost_delta":
+            _money(ax, "x")
         ax.set_xlabel(xlabel, fontsize=8, color=MUTED)
         _title(ax, title)
     fig.savefig(path, bbox_inches="tight", format="png")
