@@ -287,13 +287,17 @@ def _read_text(root: Path, file: str, notices: list[str], *, what: str,
 
 @dataclass(frozen=True)
 class _Table:
-    """One CSV file as text cells (stripped, "" when empty) with the line of every row."""
+    """One CSV file as text cells (stripped, "" when empty) with the line of every row.
+
+    ``problems`` holds the rows that could not be read (wrong length, runaway quote): the
+    readers add the problems of the cells to them, so that all come out together."""
 
     file: str
     frame: pd.DataFrame
     lines: np.ndarray
     decimal_comma: bool
     separator: str
+    problems: tuple[Problem, ...] = ()
 
     def line(self, i: int) -> int:
         return int(self.lines[i])
@@ -420,8 +424,9 @@ def _read_csv(root: Path, file: str, required: list[str], optional: list[str],
     header_line = next((line.rstrip("\r\n") for line in io.StringIO(text, newline="")
                         if line.strip()), "")
     separator = max((",", ";", "\t"), key=header_line.count)
-    header, header_at, columns, lines, problems = (
+    header, header_at, columns, lines, row_problems = (
         _split_simple(text, separator) or _split_careful(text, separator, file))
+    problems: list[Problem] = []
     if header_at != 1:
         notices.append(f"{file}: {header_at - 1} blank line(s) before the header skipped")
     header = [c.strip() or f"(unnamed column {k + 1})" for k, c in enumerate(header)]
@@ -444,10 +449,11 @@ def _read_csv(root: Path, file: str, required: list[str], optional: list[str],
         fix = f"rename column '{near}' to '{col}'" if near else f"add a column '{col}'"
         problems.append(Problem(file, f"required column '{col}' is missing", fix,
                                 line=header_at, column=col))
-    if not len(lines) and not optional_file and not problems:
+    if not len(lines) and not optional_file and not row_problems:
         problems.append(Problem(file, "the file has a header but no data rows",
                                 "add one row per item below the header"))
-    _raise_if(problems)
+    if problems:  # without the right columns the cells cannot be checked
+        _raise_if(row_problems + problems)
     if separator != ",":
         notices.append(f"{file}: columns are separated by {_SEPARATOR_NAMES[separator]}; "
                        "read accordingly")
@@ -464,7 +470,7 @@ def _read_csv(root: Path, file: str, required: list[str], optional: list[str],
                              .any())
         if decimal_comma:
             notices.append(f"{file}: numbers read with a decimal comma (1.234,50 = 1234.50)")
-    return _Table(file, frame, lines, decimal_comma, separator)
+    return _Table(file, frame, lines, decimal_comma, separator, tuple(row_problems))
 
 
 _PLAIN_NUMBER = r"[+-]?(?:[0-9]+\.?[0-9]*|\.[0-9]+)(?:[eE][+-]?[0-9]+)?"
@@ -984,7 +990,7 @@ def _calendar(values: dict[str, Any], report: Callable[..., None]) -> CalendarSe
 def _read_depots(root: Path, notices: list[str]) -> pd.DataFrame:
     file = "depots.csv"
     table = _read_csv(root, file, ["depot", "max_visits_per_day"], list(WEEKDAYS), notices)
-    problems: list[Problem] = []
+    problems = list(table.problems)
     frame = table.frame
     names = _text_ids(table, "depot", "depot name", "depot", problems)
     out = pd.DataFrame(index=pd.Index(names, name="depot"))
@@ -1016,7 +1022,7 @@ def _read_terminals(root: Path, depots: pd.DataFrame, notices: list[str]) -> pd.
                 "visit_days"]
     table = _read_csv(root, file, required, ["site", "visit_fee"], notices)
     frame = table.frame
-    problems: list[Problem] = []
+    problems = list(table.problems)
     ids = _text_ids(table, "terminal_id", "terminal_id", "terminal", problems)
     depot = frame["depot"]
     table.flag(problems, depot == "", "depot", "depot is empty",
@@ -1089,7 +1095,7 @@ def _read_dispense(root: Path, terminals: pd.DataFrame, notices: list[str]) -> p
     file = "dispense.csv"
     table = _read_csv(root, file, ["terminal_id", "date", "amount", "status"], [], notices)
     frame = table.frame
-    problems: list[Problem] = []
+    problems = list(table.problems)
     table.flag(problems, frame["terminal_id"] == "", "terminal_id", "terminal_id is empty",
                "write the terminal's id as in terminals.csv")
     _check_known(table, "terminal_id", terminals.index, "terminals.csv", "terminal", problems)
@@ -1118,12 +1124,12 @@ def _read_committed(root: Path, terminals: pd.DataFrame, start: pd.Timestamp, ho
     file = "committed.csv"
     table = _read_csv(root, file, ["terminal_id", "date", "load"], [], notices,
                       optional_file=True)
-    if table is None or table.frame.empty:
+    if table is None or (table.frame.empty and not table.problems):
         return pd.DataFrame({"terminal_id": pd.Series([], dtype="str"),
                              "date": pd.Series([], dtype=DATE_UNIT),
                              "load": pd.Series([], dtype=float)})
     frame = table.frame
-    problems: list[Problem] = []
+    problems = list(table.problems)
     table.flag(problems, frame["terminal_id"] == "", "terminal_id", "terminal_id is empty",
                "write the terminal's id as in terminals.csv")
     unknown = _check_known(table, "terminal_id", terminals.index, "terminals.csv", "terminal",

@@ -362,6 +362,21 @@ def test_two_bad_rows_are_both_reported(rewrite_tiny, tiny_dir):
     assert got == [(3, "amount"), (7, "amount")]
 
 
+def test_unreadable_rows_and_bad_cells_come_together(rewrite_tiny, tiny_dir):
+    rewrite_tiny(D, cell(4, "status", "ok,extra"))
+    rewrite_tiny(D, cell(9, "date", "2026-99-01"))
+    with pytest.raises(InputError) as info:
+        load_scenario(tiny_dir)
+    assert [(p.line, p.column) for p in info.value.problems] == [(4, None), (9, "date")]
+
+
+def test_an_unreadable_committed_row_is_not_dropped(rewrite_tiny, tiny_dir):
+    rewrite_tiny("committed.csv", committed("BRH-001,2026-12-01,40000,extra"))
+    with pytest.raises(InputError) as info:
+        load_scenario(tiny_dir)
+    assert [(p.file, p.line) for p in info.value.problems] == [("committed.csv", 2)]
+
+
 def test_different_problems_of_one_file_come_together(rewrite_tiny, tiny_dir):
     rewrite_tiny(T, cell(2, "capacity", "0"))
     rewrite_tiny(T, cell(3, "depot", "Nowhere"))
