@@ -379,27 +379,35 @@ def _split_careful(text: str, separator: str, file: str) -> tuple:
                                  "write the header line and the data rows"))
     header, header_at = rows[filled[0]], first[filled[0]]
     width = len(header)
-    problems: list[Problem] = []
-    body, lines = [], []
+    body, lines, runaway, wrong = [], [], [], []
     for i in filled[1:]:
         row, line = rows[i], first[i]
         if last[i] > line:
-            problems.append(Problem(
-                file, f"the row runs over lines {line}–{last[i]}: a double quote opens a "
-                      "value that does not end on this line",
-                "close the quote on the same line, or remove it", line=line))
+            runaway.append(i)
             continue
         if len(row) > width and not any(c.strip() for c in row[width:]):
             row = row[:width]  # trailing separators, as some spreadsheets write
         if len(row) != width:
-            problems.append(Problem(
-                file, f"the row has {len(row)} values but the header has {width} columns",
-                f"give every row one value per column, separated by "
-                f"{_SEPARATOR_NAMES[separator]}; put a value that holds the separator in "
-                "double quotes", line=line))
+            wrong.append(i)
             continue
         body.append(row)
         lines.append(line)
+    problems: list[Problem] = []
+    for bad, problem, fix in (
+            (runaway, lambda i: f"the row runs over lines {first[i]}–{last[i]}: a double quote "
+                                "opens a value that does not end on this line",
+             "close the quote on the same line, or remove it"),
+            (wrong, lambda i: f"the row has {len(rows[i])} values but the header has {width} "
+                              "columns",
+             f"give every row one value per column, separated by "
+             f"{_SEPARATOR_NAMES[separator]}; put a value that holds the separator in double "
+             "quotes")):
+        problems += [Problem(file, problem(i), fix, line=first[i])
+                     for i in bad[:MAX_ROWS_PER_CHECK]]
+        if len(bad) > MAX_ROWS_PER_CHECK:
+            problems.append(Problem(file, f"and {len(bad) - MAX_ROWS_PER_CHECK} more row(s) "
+                                          f"like these (up to line {first[bad[-1]]})",
+                                    "fix them the same way"))
     columns = [[r[k] for r in body] for k in range(width)]
     return header, header_at, columns, np.asarray(lines, dtype=np.int64), problems
 

@@ -413,6 +413,15 @@ def test_many_bad_rows_are_counted_after_the_first_few(rewrite_tiny, tiny_dir):
     assert "and 5 more row(s)" in problems[-1].problem
 
 
+def test_many_unreadable_rows_are_counted_after_the_first_few(rewrite_tiny, tiny_dir):
+    rewrite_tiny(D, lambda t: t.replace(",ok\n", ",ok,x,y\n"))
+    with pytest.raises(InputError) as info:
+        load_scenario(tiny_dir)
+    problems = info.value.problems
+    assert len(problems) == MAX_ROWS_PER_CHECK + 1
+    assert problems[-1].problem.startswith("and ") and "more row(s)" in problems[-1].problem
+
+
 def test_line_numbers_count_blank_lines(rewrite_tiny, tiny_dir):
     rewrite_tiny(D, lambda t: t.replace("\n", "\n\n", 3))  # blank lines after lines 1–3
     rewrite_tiny(D, cell(8, "amount", "x"))  # line 8 is the 5th data row now
