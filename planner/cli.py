@@ -310,7 +310,7 @@ def backtest(
             return
         if quiet:
             return
-        console.print(_frame_table(result.table, "Backtest by policy"))
+        console.print(_frame_table(result.compact(), "Backtest by policy"))
         for line in result.summary.get("headline", []):
             console.print(line, markup=False)
         console.print(f"Run folder written: [bold]{out}[/bold]")
