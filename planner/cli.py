@@ -91,6 +91,41 @@ def _print_warnings(warnings: tuple[str, ...] | list[str], quiet: bool) -> None:
         errors.print(f"[yellow]notice[/yellow] {w}", markup=True, highlight=False)
 
 
+class StageProgress:
+    """Rich progress bars for pipeline stages (elapsed and remaining time), as the
+    ``progress(stage, done, total)`` callback of :mod:`planner.pipeline`."""
+
+    LABELS = {"clean": "Cleaning history", "forecast": "Forecasting terminals",
+              "optimize": "Optimizing the schedule", "evaluate": "Checking out of sample",
+              "report": "Writing report"}
+
+    def __init__(self, enabled: bool):
+        from rich.progress import (BarColumn, MofNCompleteColumn, Progress, TextColumn,
+                                   TimeElapsedColumn, TimeRemainingColumn)
+
+        self.enabled = enabled
+        self.bar = Progress(TextColumn("{task.description:<26}"), BarColumn(),
+                            MofNCompleteColumn(), TimeElapsedColumn(), TextColumn("left"),
+                            TimeRemainingColumn(), console=errors, transient=False)
+        self.tasks: dict[str, int] = {}
+
+    def __call__(self, stage: str, done: int, total: int) -> None:
+        if not self.enabled:
+            return
+        if stage not in self.tasks:
+            self.tasks[stage] = self.bar.add_task(self.LABELS.get(stage, stage), total=total)
+        self.bar.update(self.tasks[stage], completed=done, total=total)
+
+    def __enter__(self) -> "StageProgress":
+        if self.enabled:
+            self.bar.start()
+        return self
+
+    def __exit__(self, *exc) -> None:
+        if self.enabled:
+            self.bar.stop()
+
+
 def _frame_table(frame, title: str, max_rows: int = 200) -> Table:
     table = Table(title=title, title_justify="left")
     for col in frame.columns:
@@ -174,8 +209,9 @@ def plan(
 
         options = PlanOptions(horizon_days=horizon, path_count=paths, seed=seed, jobs=jobs,
                               time_limit_s=time_limit)
-        result = run_plan(_scenario_path(scenario), out, options=options,
-                          progress=not (quiet or as_json))
+        with StageProgress(enabled=not (quiet or as_json)) as progress:
+            result = run_plan(_scenario_path(scenario), out, options=options,
+                              progress=progress)
         if as_json:
             console.print_json(json.dumps(result.summary, default=str))
             return

@@ -8,7 +8,7 @@ from __future__ import annotations
 import platform
 from dataclasses import dataclass, field, replace
 from pathlib import Path
-from typing import Any
+from typing import Any, Callable
 
 import numpy as np
 import pandas as pd
@@ -133,13 +133,23 @@ def _apply_options(scenario: Scenario, options: PlanOptions) -> Scenario:
     return replace(scenario, **changes) if changes else scenario
 
 
+Progress = Callable[[str, int, int], None]
+"""``progress(stage, done, total)``: called as a stage advances (stage names: clean, forecast,
+optimize, evaluate)."""
+
+
+def _quiet(stage: str, done: int, total: int) -> None:
+    return None
+
+
 def plan_scenario(source: str | Path | Scenario, *, options: PlanOptions | None = None,
-                  progress: bool = False, **overrides: Any) -> PlanRun:
+                  progress: Progress | None = None, **overrides: Any) -> PlanRun:
     """Plan visits and loads for a scenario; returns every stage's result, writes nothing.
 
     ``overrides`` are fields of :class:`PlanOptions` (``horizon_days=21, seed=3, jobs=2`` …).
     Raises :class:`~planner.errors.InputError` on malformed input.
     """
+    progress = progress or _quiet
     from planner.cleaning import clean_history
     from planner.forecast import forecast_scenario
     from planner.optimize import build_problem, orders_frame, plan_frame, solve_plan
@@ -148,14 +158,19 @@ def plan_scenario(source: str | Path | Scenario, *, options: PlanOptions | None 
     scenario = source if isinstance(source, Scenario) else load_scenario(source)
     scenario = _apply_options(scenario, options)
 
+    progress("clean", 0, 1)
     clean = clean_history(scenario)
+    progress("clean", 1, 1)
     forecast = forecast_scenario(scenario, clean,
                                  horizon_days=scenario.horizon_days + options.tail_days,
                                  path_count=scenario.path_count, seed=scenario.seed,
-                                 jobs=options.jobs, origins=options.origins)
+                                 jobs=options.jobs, origins=options.origins,
+                                 progress=lambda done, total: progress("forecast", done, total))
     problem = build_problem(scenario, forecast.paths, forecast.dates,
                             tail_days=options.tail_days)
+    progress("optimize", 0, 1)
     result = solve_plan(problem, time_limit_s=options.time_limit_s)
+    progress("optimize", 1, 1)
     plan = plan_frame(problem, result)
     orders = orders_frame(problem, result)
     costs = result.ledger.parts()
@@ -163,7 +178,9 @@ def plan_scenario(source: str | Path | Scenario, *, options: PlanOptions | None 
     summary = _summary(scenario, options, forecast, problem, result, plan, costs)
     evaluation, check = None, None
     if options.evaluate:
+        progress("evaluate", 0, 1)
         evaluation, check = evaluate_plan(scenario, clean, problem, result, options)
+        progress("evaluate", 1, 1)
         summary["out_of_sample"] = check.summary
         summary["routines"] = json_records(evaluation)
     return PlanRun(scenario, options, clean, forecast, problem, result, plan, orders, costs,
@@ -223,7 +240,7 @@ def json_records(frame: pd.DataFrame) -> list[dict[str, Any]]:
 
 
 def run_plan(source: str | Path | Scenario, out_dir: str | Path, *,
-             options: PlanOptions | None = None, progress: bool = False) -> PlanRun:
+             options: PlanOptions | None = None, progress: Progress | None = None) -> PlanRun:
     """Plan a scenario and write its run folder atomically (owner-only permissions)."""
     from planner.runfolder import RunFolderWriter
 
@@ -239,8 +256,10 @@ def run_plan(source: str | Path | Scenario, out_dir: str | Path, *,
         if run.options.report:
             from planner.report import write_plan_xlsx, write_report
 
+            (progress or _quiet)("report", 0, 1)
             write_report(run, writer)
             write_plan_xlsx(run, writer)
+            (progress or _quiet)("report", 1, 1)
     return replace(run, run_folder=Path(out_dir))
 
 

@@ -20,7 +20,7 @@ starts after its last day and the days in between are simulated and dropped.
 from __future__ import annotations
 
 import inspect
-from collections.abc import Mapping, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from concurrent.futures import ProcessPoolExecutor
 from dataclasses import dataclass, field
 
@@ -237,13 +237,15 @@ def _series(clean, terminal_ids: Sequence[str]) -> dict[str, tuple[pd.Timestamp,
 def forecast_scenario(scenario, clean, *, horizon_days: int, path_count: int, seed: int,
                       jobs: int = 1, origins: int = 8,
                       models: Sequence[str | DemandModel] | Mapping[str, DemandModel] | None
-                      = None) -> ForecastResult:
+                      = None, progress: Callable[[int, int], None] | None = None
+                      ) -> ForecastResult:
     """Forecast every terminal of ``scenario`` from its cleaned history ``clean``.
 
     ``horizon_days`` from ``scenario.start_date`` (the optimizer asks for its horizon plus
     tail days); ``path_count`` demand paths per terminal from ``seed``; ``jobs > 1`` runs
     terminals in that many processes (identical results); ``origins`` weekly backtest
-    origins; ``models`` the candidates (see :func:`candidate_models`). Returns a
+    origins; ``models`` the candidates (see :func:`candidate_models`); ``progress(done,
+    total)`` is called after each terminal. Returns a
     :class:`ForecastResult`. Raises :class:`~planner.errors.InputError` for an unknown model.
     """
     terminal_ids = tuple(scenario.terminal_ids)
@@ -276,12 +278,19 @@ def forecast_scenario(scenario, clean, *, horizon_days: int, path_count: int, se
             terminal_id=tid, y=y, exog=features[start_row:start_row + len(y) + total],
             horizon_total=total, keep=horizon_days, path_count=path_count, seed=seeds[i],
             origins=origins, candidates=candidates, fallback=fallback))
+    results = []
     if jobs > 1 and len(tasks) > 1:
         with ProcessPoolExecutor(max_workers=jobs) as pool:
             chunk = max(1, len(tasks) // (4 * jobs))
-            results = list(pool.map(forecast_terminal, tasks, chunksize=chunk))
+            for r in pool.map(forecast_terminal, tasks, chunksize=chunk):
+                results.append(r)
+                if progress is not None:
+                    progress(len(results), len(tasks))
     else:
-        results = [forecast_terminal(task) for task in tasks]
+        for task in tasks:
+            results.append(forecast_terminal(task))
+            if progress is not None:
+                progress(len(results), len(tasks))
     return _assemble(terminal_ids, dates, results, series)
 
 
