@@ -28,6 +28,7 @@ separates by cycle between visits, which the optimizer exploits (``planner.optim
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import cached_property
 
 import numpy as np
 import pandas as pd
@@ -62,24 +63,75 @@ class CostRates:
 
 @dataclass(frozen=True)
 class Ledger:
-    """Arrays ``[terminal, path, day]`` unless noted; amounts and costs in currency units."""
+    """Arrays ``[terminal, path, day]`` unless noted; amounts and costs in currency units.
+
+    The balance after each visit, the amounts returned, the loads and the demand are kept; the
+    other arrays (``dispensed``, ``dry``, ``shortfall``, ``end_balance``, ``carry``,
+    ``handling``, ``dry_penalty``, ``shortfall_penalty``) are derived from them on first use,
+    so a ledger of many terminals costs only what is read from it.
+    """
 
     balance_open: np.ndarray    # balance after the visit, before withdrawals
-    dispensed: np.ndarray
-    dry: np.ndarray             # bool
-    shortfall: np.ndarray
-    end_balance: np.ndarray
     returned: np.ndarray        # residual (swap) or excess (top-up) returned at a visit
-    carry: np.ndarray
-    handling: np.ndarray
-    dry_penalty: np.ndarray
-    shortfall_penalty: np.ndarray
     visit: np.ndarray           # [terminal, day] visit fees paid (deterministic)
+    loads: np.ndarray           # [terminal, day] loads (0 without a visit)
+    demand: np.ndarray
+    rates: CostRates
+
+    @cached_property
+    def dispensed(self) -> np.ndarray:
+        return np.minimum(self.demand, self.balance_open)
+
+    @cached_property
+    def dry(self) -> np.ndarray:
+        """bool: demand above the balance (strictly)."""
+        return self.demand > self.balance_open
+
+    @cached_property
+    def shortfall(self) -> np.ndarray:
+        return np.maximum(self.demand - self.balance_open, 0.0)
+
+    @cached_property
+    def end_balance(self) -> np.ndarray:
+        return np.maximum(self.balance_open - self.demand, 0.0)
+
+    @cached_property
+    def carry(self) -> np.ndarray:
+        return self.rates.carry_rate_daily * self.end_balance
+
+    @cached_property
+    def handling(self) -> np.ndarray:
+        return (self.rates.handling_per_1000 / 1000.0) * (self.returned + self.loads[:, None, :])
+
+    @cached_property
+    def dry_penalty(self) -> np.ndarray:
+        return self.rates.dry_day_penalty * self.dry
+
+    @cached_property
+    def shortfall_penalty(self) -> np.ndarray:
+        return (self.rates.shortfall_penalty_per_1000 / 1000.0) * self.shortfall
+
+    def _part_sums(self) -> dict[str, np.ndarray]:
+        """``[terminal, path]`` sums over days of each cost part (without big temporaries
+        beyond the cached arrays)."""
+        if "_sums" not in self.__dict__:
+            r = self.rates
+            sums = {
+                "carry": r.carry_rate_daily * self.end_balance.sum(axis=2),
+                "handling": (r.handling_per_1000 / 1000.0)
+                * (self.returned.sum(axis=2) + self.loads.sum(axis=1)[:, None]),
+                "dry_penalty": r.dry_day_penalty * self.dry.sum(axis=2),
+                "shortfall_penalty": (r.shortfall_penalty_per_1000 / 1000.0)
+                * self.shortfall.sum(axis=2),
+            }
+            self.__dict__["_sums"] = sums
+        return self.__dict__["_sums"]
 
     def total(self) -> np.ndarray:
         """``[terminal, path]`` cost over all days."""
-        per_day = self.carry + self.handling + self.dry_penalty + self.shortfall_penalty
-        return per_day.sum(axis=2) + self.visit.sum(axis=1)[:, None]
+        s = self._part_sums()
+        return (s["carry"] + s["handling"] + s["dry_penalty"] + s["shortfall_penalty"]
+                + self.visit.sum(axis=1)[:, None])
 
     def expected_cost(self) -> np.ndarray:
         """``[terminal]`` expected cost (mean over paths) over all days."""
@@ -90,12 +142,13 @@ class Ledger:
 
         Columns ``carry, visit, handling, dry_penalty, shortfall_penalty, total``.
         """
+        s = self._part_sums()
         frame = pd.DataFrame({
-            "carry": self.carry.sum(axis=2).mean(axis=1),
+            "carry": s["carry"].mean(axis=1),
             "visit": self.visit.sum(axis=1).astype(float),
-            "handling": self.handling.sum(axis=2).mean(axis=1),
-            "dry_penalty": self.dry_penalty.sum(axis=2).mean(axis=1),
-            "shortfall_penalty": self.shortfall_penalty.sum(axis=2).mean(axis=1),
+            "handling": s["handling"].mean(axis=1),
+            "dry_penalty": s["dry_penalty"].mean(axis=1),
+            "shortfall_penalty": s["shortfall_penalty"].mean(axis=1),
         })
         frame["total"] = self.expected_cost()
         return frame
@@ -143,41 +196,25 @@ def simulate(visits: np.ndarray, loads: np.ndarray, start_balance: np.ndarray,
     start = np.asarray(start_balance, dtype=float).reshape(t_count)
     cap = np.broadcast_to(np.asarray(limit, dtype=float).reshape(-1), (t_count,))[:, None]
 
-    shape = demand.shape
-    balance_open = np.empty(shape)
-    dispensed = np.empty(shape)
-    returned = np.zeros(shape)
-    balance = np.broadcast_to(start[:, None], shape[:2]).copy()
+    balance_open = np.empty(demand.shape)
+    returned = np.zeros(demand.shape)
+    balance = np.broadcast_to(start[:, None], demand.shape[:2]).copy()
     for t in range(d_count):
-        v = visits[:, t][:, None]
-        load = loads[:, t][:, None]
-        if mode == "swap":
-            back = np.where(v, balance, 0.0)
-            balance = np.where(v, load, balance)
-        else:
-            filled = balance + load
-            back = np.where(v, np.maximum(filled - cap, 0.0), 0.0)
-            balance = np.where(v, np.minimum(filled, cap), balance)
-        returned[:, :, t] = back
+        v = visits[:, t]
+        if v.any():
+            on = np.flatnonzero(v)
+            before = balance[on]
+            load = loads[on, t][:, None]
+            if mode == "swap":
+                returned[on, :, t] = before
+                balance[on] = load
+            else:
+                filled = before + load
+                returned[on, :, t] = np.maximum(filled - cap[on], 0.0)
+                balance[on] = np.minimum(filled, cap[on])
         balance_open[:, :, t] = balance
-        out = np.minimum(demand[:, :, t], balance)
-        dispensed[:, :, t] = out
-        balance = balance - out
-
-    dry = demand > balance_open
-    shortfall = demand - dispensed
-    end_balance = balance_open - dispensed
-    handling = rates.handling_per_1000 * (loads[:, None, :] * visits[:, None, :] + returned) / 1000.0
-    return Ledger(
-        balance_open=balance_open,
-        dispensed=dispensed,
-        dry=dry,
-        shortfall=shortfall,
-        end_balance=end_balance,
-        returned=returned,
-        carry=rates.carry_rate_daily * end_balance,
-        handling=handling,
-        dry_penalty=rates.dry_day_penalty * dry,
-        shortfall_penalty=rates.shortfall_penalty_per_1000 * shortfall / 1000.0,
-        visit=np.where(visits, fee, 0.0),
-    )
+        # what stays after the day's withdrawals: balance − min(demand, balance)
+        np.subtract(balance, demand[:, :, t], out=balance)
+        np.maximum(balance, 0.0, out=balance)
+    return Ledger(balance_open=balance_open, returned=returned,
+                  visit=np.where(visits, fee, 0.0), loads=loads, demand=demand, rates=rates)

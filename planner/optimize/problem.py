@@ -225,21 +225,25 @@ def dry_path_allowance(problem: PlanningProblem) -> tuple[np.ndarray, np.ndarray
 
     ``allowance = max(floor(max_dry_probability · P + 1e-9), least)``.
     """
-    visits, loads = max_service_plan(problem)
-    ledger = evaluate_plan(problem, visits, loads)
-    least = ledger.dry_paths(problem.horizon_days).sum(axis=1).astype(int)
-    return np.maximum(target_dry_paths(problem), least), least
+    allowance, least, _ = service_limits(problem)
+    return allowance, least
 
 
 def target_notes(problem: PlanningProblem) -> tuple[str, ...]:
     """Per terminal, why the service target cannot be met ("" when it can)."""
+    return service_limits(problem)[2]
+
+
+def service_limits(problem: PlanningProblem) -> tuple[np.ndarray, np.ndarray, tuple[str, ...]]:
+    """``(allowance, least, notes)`` of :func:`dry_path_allowance` and :func:`target_notes`
+    from one simulation of the :func:`max_service_plan`."""
     visits, loads = max_service_plan(problem)
     ledger = evaluate_plan(problem, visits, loads)
     horizon = problem.horizon_days
     paths = problem.shape[1]
     target = target_dry_paths(problem)
     dry = ledger.dry[:, :, :horizon]
-    least = dry.any(axis=2).sum(axis=1)
+    least = dry.any(axis=2).sum(axis=1).astype(int)
     notes = []
     for t in range(problem.shape[0]):
         if least[t] <= target:
@@ -249,7 +253,7 @@ def target_notes(problem: PlanningProblem) -> tuple[str, ...]:
         head = (f"target {problem.max_dry_probability:.1%} not reachable: at best "
                 f"{share:.1%} of paths run dry within the horizon")
         notes.append(f"{head}; {_dry_cause(problem, t, visits[t], dry[t])}")
-    return tuple(notes)
+    return np.maximum(target, least), least, tuple(notes)
 
 
 def _dry_cause(problem: PlanningProblem, t: int, visits: np.ndarray, dry: np.ndarray) -> str:

@@ -1,0 +1,488 @@
+"""The network schedule: every terminal's plan under the crew limits of its depot.
+
+Depots are independent given their crews, so each depot is solved on its own (in parallel
+worker processes when there are several). Within a depot (Dantzig–Wolfe decomposition):
+
+- A *column* is one terminal's plan (visit days and loads) with its expected cost over all
+  days, priced exactly on the demand paths (:mod:`planner.optimize.cycles`).
+- The *master* chooses one column per terminal, ``Σ_j x[t, j] = 1``, with
+  ``Σ_{t, j} visits[t, j, d] · x[t, j] ≤ crew_limit[d]`` (``crew-limit-{depot}-{day}``).
+- Its LP relaxation's duals are Lagrangian prices ``λ[d] ≥ 0`` on the crew rows; each terminal
+  then finds its cheapest plan with ``λ[d]`` added to the visit fee of day ``d``
+  (:mod:`planner.optimize.terminal`: a shortest path over the days, and an exact arc MILP when
+  the service target binds). Columns with negative reduced cost join the master.
+- Every exact pricing round gives the Lagrangian bound
+  ``Σ_t min_plan (cost + λ · visits) − Σ_d λ[d] · crew_limit[d]`` (a lower bound of the
+  coupled optimum for any ``λ ≥ 0``); between exact rounds, heuristic plans that meet the
+  target (:func:`planner.optimize.terminal.target_plans`) generate columns quickly.
+- The master as a MILP over all columns gives the plan; ``gap = (objective − bound) /
+  objective``. When the crews cannot serve every terminal's target together, the targets of
+  that depot become soft (an extra dry path costs more than anything else) and the notes say so.
+
+The small models (per-terminal MILPs, master LPs) go to HiGHS through ``highspy`` directly, the
+master MILP through PuLP (``pulp.HiGHS``; CBC when HiGHS is not installed or ``solver="cbc"``).
+"""
+from __future__ import annotations
+
+import math
+import os
+import time
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from planner.optimize import milp, terminal
+from planner.optimize.problem import (PlanningProblem, PlanResult, result_from_plan,
+                                      service_limits)
+
+GAP_TOLERANCE = 0.005
+
+
+@dataclass
+class ColumnPool:
+    """Plans collected for the terminals of one depot (local terminal numbers)."""
+
+    terminal: list = field(default_factory=list)
+    visits: list = field(default_factory=list)
+    levels: list = field(default_factory=list)
+    cost: list = field(default_factory=list)
+    seen: set = field(default_factory=set)
+
+    def add(self, t: int, visits: np.ndarray, levels: np.ndarray, cost: float) -> bool:
+        key = (t, visits.tobytes(), np.where(visits, levels, -1).tobytes())
+        if key in self.seen or not np.isfinite(cost):
+            return False
+        self.seen.add(key)
+        self.terminal.append(t)
+        self.visits.append(visits.copy())
+        self.levels.append(np.where(visits, levels, -1))
+        self.cost.append(float(cost))
+        return True
+
+    def arrays(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        return (np.array(self.terminal, dtype=int), np.array(self.visits, dtype=bool),
+                np.array(self.cost, dtype=float))
+
+
+@dataclass
+class DepotResult:
+    """Plan of one depot's terminals (local order) and the proof of its quality."""
+
+    visits: np.ndarray
+    levels: np.ndarray
+    objective: float
+    bound: float
+    status: str
+    soft: bool
+    log: list
+
+
+# --------------------------------------------------------------------------------------------
+# Master problem
+# --------------------------------------------------------------------------------------------
+
+
+def define_assignment(model: milp.LinearModel, pool: ColumnPool, t_count: int,
+                      integer: bool) -> np.ndarray:
+    """``x[t, j] ∈ {0, 1}`` (or ``[0, 1]``) per column, cost = its expected cost;
+    ``Σ_j x[t, j] = 1`` per terminal (``one-plan-{t}``)."""
+    term, _, cost = pool.arrays()
+    names = [f"x-{t}-{j}" for j, t in enumerate(term)]
+    cols = model.add_variables(names, cost, 0.0, 1.0, integer=integer)
+    model.add_constraints([f"one-plan-{t}" for t in range(t_count)], term, cols,
+                          np.ones(term.size), 1.0, 1.0)
+    return cols
+
+
+def define_crew_limits(model: milp.LinearModel, pool: ColumnPool, cols: np.ndarray,
+                       depot: str, crew: np.ndarray, slack_cost: float | None) -> None:
+    """``Σ_{t, j} visits[t, j, d] · x[t, j] (− slack[d]) ≤ crew_limit[d]`` per day
+    (``crew-limit-{depot}-{day}``); the slack, priced at ``slack_cost``, keeps a restricted
+    master feasible before enough columns exist."""
+    _, visits, _ = pool.arrays()
+    d_count = crew.size
+    j, d = np.nonzero(visits)
+    rows, columns, values = [d], [cols[j]], [np.ones(j.size)]
+    if slack_cost is not None:
+        slack = model.add_variables([f"crew-slack-{depot}-{day}" for day in range(d_count)],
+                                    slack_cost, 0.0, milp.INF)
+        rows.append(np.arange(d_count))
+        columns.append(slack)
+        values.append(-np.ones(d_count))
+    model.add_constraints([f"crew-limit-{depot}-{day}" for day in range(d_count)],
+                          np.concatenate(rows), np.concatenate(columns),
+                          np.concatenate(values), upper=crew.astype(float))
+
+
+def build_master(pool: ColumnPool, t_count: int, depot: str, crew: np.ndarray, *,
+                 integer: bool, slack_cost: float | None) -> tuple[milp.LinearModel, np.ndarray]:
+    """The restricted master of one depot (assignment + crew limits)."""
+    model = milp.LinearModel(name=f"master-{depot}")
+    cols = define_assignment(model, pool, t_count, integer)
+    define_crew_limits(model, pool, cols, depot, crew, slack_cost)
+    return model, cols
+
+
+def solve_master_lp(pool: ColumnPool, t_count: int, depot: str, crew: np.ndarray,
+                    slack_cost: float, solver: str
+                    ) -> tuple[float, np.ndarray, np.ndarray, np.ndarray]:
+    """LP relaxation of the restricted master: ``(value, convexity duals μ [T], crew prices
+    λ [D] ≥ 0, crew slack [D])``."""
+    model, cols = build_master(pool, t_count, depot, crew, integer=False,
+                               slack_cost=slack_cost)
+    sol = milp.solve(model, solver=solver, time_limit_s=60.0)
+    duals = sol.row_dual if sol.row_dual is not None else np.zeros(model.n_rows)
+    mu = duals[:t_count]
+    lam = np.maximum(-duals[t_count:t_count + crew.size], 0.0)
+    slack = sol.x[cols.size:cols.size + crew.size]
+    return sol.objective, mu, lam, slack
+
+
+def solve_master_mip(pool: ColumnPool, t_count: int, depot: str, crew: np.ndarray,
+                     solver: str, time_limit_s: float, gap: float
+                     ) -> tuple[str, np.ndarray | None, float, float]:
+    """The master as a MILP through PuLP: ``(status, chosen column per terminal, objective,
+    bound)``; ``chosen`` is ``None`` when no assignment respects the crew limits."""
+    model, cols = build_master(pool, t_count, depot, crew, integer=True, slack_cost=None)
+    name = "pulp-highs" if solver == "highs" and milp.highs_available() else "cbc"
+    sol = milp.solve(model, solver=name, time_limit_s=time_limit_s, mip_rel_gap=gap)
+    if sol.status in ("infeasible", "error"):
+        return sol.status, None, math.inf, -math.inf
+    term, _, _ = pool.arrays()
+    chosen = np.full(t_count, -1)
+    picked = np.flatnonzero(sol.x[cols] > 0.5)
+    chosen[term[picked]] = picked
+    return sol.status, chosen, sol.objective, sol.bound
+
+
+# --------------------------------------------------------------------------------------------
+# One depot
+# --------------------------------------------------------------------------------------------
+
+
+def _soft_penalty(problem: PlanningProblem) -> float:
+    """Price of one extra dry path when targets are soft: more than any plan of a terminal can
+    save otherwise (every day a visit, a dry day, a full load carried and handled twice)."""
+    d_count = problem.shape[2]
+    rates = problem.rates
+    top = problem.limit.max(initial=0.0)
+    worst = d_count * (rates.dry_day_penalty + problem.visit_fee.max(initial=0.0)
+                       + rates.carry_rate_daily * top
+                       + 2 * rates.handling_per_1000 * top / 1000.0
+                       + rates.shortfall_penalty_per_1000 * problem.demand.max(initial=0.0)
+                       / 1000.0)
+    return 10.0 * worst + 1.0
+
+
+def solve_depot(problem: PlanningProblem, allowance: np.ndarray, depot: int, *,
+                deadline: float, solver: str = "highs", gap_tolerance: float = GAP_TOLERANCE,
+                exact: bool = False, soft: bool = False,
+                seed_pool: ColumnPool | None = None) -> DepotResult:
+    """Plan the terminals of one depot (``problem`` holds only them) under its crew limits.
+
+    ``exact``: price every terminal exactly in every round and prove optimality to ~1e-9
+    (small instances); otherwise heuristic rounds between exact ones, stopping at
+    ``gap_tolerance``. ``soft``: targets may be exceeded at a price (see the module text).
+    """
+    started = time.perf_counter()
+    log: list[str] = []
+    t_count, _, d_count = problem.shape
+    name = problem.depots[depot]
+    crew = np.maximum(problem.crew_limit[depot], problem.committed.sum(axis=0)).astype(float)
+    fee = problem.visit_fee
+    penalty = _soft_penalty(problem) if soft else None
+    # soft targets are a fallback for crews too few: heuristic columns, exact only when small
+    batch = terminal.prepare_batch(problem, allowance, soft_penalty=penalty)
+    rows = np.arange(t_count)
+    tight = 1e-9 if exact else gap_tolerance / 20.0
+    log.append(f"{name}: {t_count} terminals, cycles priced in "
+               f"{time.perf_counter() - started:.1f} s")
+
+    pool = ColumnPool()
+    slack_cost: float | None = 1e3 * (float(fee.max(initial=1.0)) * d_count + 1.0)
+    if soft:
+        slack_cost = None       # plans with the committed visits only always fit the crews
+        for t in rows:
+            pool.add(t, *_committed_only(batch, t))
+        if seed_pool is not None:     # plans that meet the targets keep their cost
+            for t, v, lv, c in zip(seed_pool.terminal, seed_pool.visits, seed_pool.levels,
+                                   seed_pool.cost):
+                pool.add(t, v, lv, c)
+
+    lam = np.zeros(d_count)
+    mu = np.full(t_count, np.inf)
+    best_bound = -math.inf
+    penalty_range = None
+    force_exact = exact
+    slack = np.zeros(d_count)
+    for iteration in range(500):
+        out_of_time = time.perf_counter() > deadline
+        price = fee + lam[None, :]
+        plans, lower, exact_done, penalty_range = _price(
+            batch, rows, price,
+            exact=force_exact or (out_of_time and best_bound == -math.inf and not soft),
+            solver=solver, tight=tight, penalty_range=penalty_range, deadline=deadline)
+        if exact_done:
+            best_bound = max(best_bound, float(lower.sum() - lam @ crew))
+        added = 0
+        for t in rows:
+            if np.isfinite(plans.value[t]) and plans.value[t] < mu[t] - 1e-9 * max(
+                    1.0, abs(plans.value[t])):
+                cost = plans.value[t] - lam @ plans.visits[t]
+                added += pool.add(t, plans.visits[t], plans.levels[t], cost)
+        value_lp, mu, lam, slack = solve_master_lp(pool, t_count, name, crew, slack_cost,
+                                                   solver)
+        log.append(f"{name}: round {iteration}{' (exact)' if exact_done else ''}: LP "
+                   f"{value_lp:,.2f}, columns {len(pool.cost)} (+{added}), bound "
+                   f"{best_bound:,.2f}, {time.perf_counter() - started:.1f} s")
+        proved = exact_done and value_lp - best_bound <= tight * max(abs(value_lp), 1e-9)
+        if proved or (exact_done and added == 0):
+            break
+        if time.perf_counter() > deadline and best_bound > -math.inf:
+            log.append(f"{name}: time limit reached in the pricing rounds")
+            break
+        if soft and not exact and added == 0:
+            break
+        # heuristic rounds until they find nothing new, then an exact round
+        force_exact = exact or (not exact_done and added == 0)
+
+    if not soft and slack.max(initial=0.0) > 1e-6:
+        log.append(f"{name}: the crews cannot serve every terminal's service target; the "
+                   "targets become soft")
+        return _soft_retry(problem, allowance, depot, deadline, solver, gap_tolerance, exact,
+                           log, pool)
+
+    remaining = max(deadline - time.perf_counter(), 1.0)
+    status, chosen, objective, mip_bound = solve_master_mip(
+        pool, t_count, name, crew, solver, remaining, 1e-9 if exact else gap_tolerance / 4)
+    if chosen is None:
+        if soft:
+            raise RuntimeError(f"{name}: no plan respects the crew limits")  # cannot happen
+        log.append(f"{name}: no combination of plans respects the crews; the targets become "
+                   "soft")
+        return _soft_retry(problem, allowance, depot, deadline, solver, gap_tolerance, exact,
+                           log, pool)
+    visits = np.array([pool.visits[j] for j in chosen])
+    levels = np.array([pool.levels[j] for j in chosen])
+    bound = best_bound if best_bound > -math.inf else -math.inf
+    gap = (objective - bound) / max(abs(objective), 1e-12)
+    state = ("optimal" if gap <= (1e-6 if exact else gap_tolerance) else
+             "time_limit" if time.perf_counter() > deadline else "feasible")
+    log.append(f"{name}: master MILP {status}, objective {objective:,.2f}, bound {bound:,.2f},"
+               f" gap {gap:.4%}, {time.perf_counter() - started:.1f} s")
+    if soft:
+        # the soft prices are not costs: report the plan's cost and a bound without them
+        objective, bound = _without_soft_prices(batch, visits, levels, objective, bound)
+    return DepotResult(visits, levels, objective, bound, state, soft, log)
+
+
+def _soft_retry(problem, allowance, depot, deadline, solver, gap_tolerance, exact, log, pool):
+    result = solve_depot(problem, allowance, depot, deadline=deadline, solver=solver,
+                         gap_tolerance=gap_tolerance, exact=exact, soft=True, seed_pool=pool)
+    result.log[:0] = log
+    return result
+
+
+def _committed_only(batch: terminal.TerminalBatch, t: int) -> tuple[np.ndarray, np.ndarray,
+                                                                     float]:
+    """Terminal ``t``'s plan with its committed visits only, and its cost with soft targets."""
+    from planner.optimize.problem import evaluate_plan
+
+    problem = batch.problem
+    visits = problem.committed[t].copy()
+    levels = np.where(visits, np.rint(np.nan_to_num(problem.fixed_load[t])
+                                      / problem.bundle[t]), -1).astype(int)
+    loads = np.where(visits, levels * problem.bundle[t], 0.0)
+    ledger = evaluate_plan(problem.subset([t]), visits[None], loads[None])
+    excess = max(0, int(ledger.dry_paths(problem.horizon_days).sum()) - int(batch.allowance[t]))
+    return visits, levels, float(ledger.expected_cost()[0]) + excess * batch.soft_penalty
+
+
+def _without_soft_prices(batch, visits, levels, objective, bound):
+    """Objective and bound of a soft-target depot in plain expected cost.
+
+    With ``E`` the priced excess of dry paths of the plan, any plan with no more excess costs
+    at least ``bound − E``; the sum of the terminals' cheapest plans ignoring crews and targets
+    bounds every plan. The larger of the two is reported."""
+    count = terminal.dry_counts(batch, np.arange(visits.shape[0]),
+                                terminal.Plans(visits, _next_visits(visits),
+                                               levels, np.zeros(visits.shape[0])))
+    excess = float(np.maximum(count - batch.allowance, 0).sum() * batch.soft_penalty)
+    free, _ = terminal.relaxed_plans(batch, batch.problem.visit_fee)
+    return objective - excess, max(bound - excess, float(free.value.sum()))
+
+
+def _next_visits(visits: np.ndarray) -> np.ndarray:
+    """``[T, D]`` the next visit after each day (``D`` when none)."""
+    t_count, d_count = visits.shape
+    out = np.full((t_count, d_count), d_count)
+    nxt = np.full(t_count, d_count)
+    for d in range(d_count - 1, -1, -1):
+        out[:, d] = nxt
+        nxt = np.where(visits[:, d], d, nxt)
+    return out
+
+
+def _price(batch: terminal.TerminalBatch, rows: np.ndarray, price: np.ndarray, *,
+           exact: bool, solver: str, tight: float, penalty_range, deadline: float):
+    """Price every terminal at day prices ``price`` ``[T, D]``.
+
+    Returns ``(plans, lower [T], exact_done, penalty_range)``: a plan per terminal meeting the
+    target, a lower bound of each terminal's priced optimum (exact when ``exact_done``)."""
+    relaxed, _ = terminal.relaxed_plans(batch, price, rows)
+    lower = relaxed.value.copy()
+    if batch.soft_penalty is None:
+        meets = terminal.dry_counts(batch, rows, relaxed) <= batch.allowance
+    else:
+        meets = np.zeros(rows.size, bool)
+    plans = relaxed
+    binding = np.flatnonzero(~meets)
+    if binding.size and batch.soft_penalty is None:
+        heur, penalty_range = terminal.target_plans(batch, price[binding], rows[binding],
+                                                    penalty_range=_range_of(penalty_range,
+                                                                            binding))
+        plans = terminal.Plans(relaxed.visits.copy(), relaxed.next_visit.copy(),
+                               relaxed.levels.copy(), relaxed.value.copy())
+        plans.put(binding, heur)
+        penalty_range = _store_range(penalty_range, binding, rows.size)
+    elif binding.size:
+        # soft targets: every dry path of a cycle priced as an extra one (never fewer)
+        heur = terminal.penalised_plans(batch, price, rows,
+                                        np.full(rows.size, batch.soft_penalty))
+        plans = _with_excess(batch, rows, heur)
+    if not exact or not binding.size:
+        return plans, lower, exact or not binding.size, penalty_range
+    for i in binding:
+        if time.perf_counter() > deadline:
+            break                     # the rest keep their relaxed bound: weaker, still valid
+        t = rows[i]
+        upper = plans.value[i]
+        plan, bound, status = terminal.exact_plan(
+            batch, t, price[i], upper_bound=upper, solver=solver,
+            time_limit_s=max(1.0, min(30.0, deadline - time.perf_counter())),
+            mip_rel_gap=tight / 4)
+        if np.isfinite(plan.value[0]) and plan.value[0] < upper:
+            plans.put(np.array([i]), plan)
+        lower[i] = max(lower[i], min(bound, plans.value[i]))
+    return plans, lower, True, penalty_range
+
+
+def _range_of(stored, binding):
+    if stored is None:
+        return None
+    low, high = stored
+    return low[binding], high[binding]
+
+
+def _store_range(found, binding, size):
+    low = np.full(size, 1e-2)
+    high = np.full(size, 1e7)
+    low[binding], high[binding] = found
+    return low, high
+
+
+def _with_excess(batch, rows, plans):
+    """Soft targets: add the price of dry paths above the allowance to the plans' values."""
+    count = terminal.dry_counts(batch, rows, plans)
+    excess = np.maximum(count - batch.allowance[rows], 0)
+    return terminal.Plans(plans.visits, plans.next_visit, plans.levels,
+                          plans.value + excess * batch.soft_penalty)
+
+
+# --------------------------------------------------------------------------------------------
+# The network
+# --------------------------------------------------------------------------------------------
+
+
+_WORK: dict = {}
+
+
+def _depot_task(args):
+    k, deadline = args
+    problem = _WORK["problem"]
+    members = np.flatnonzero(problem.depot_of == k)
+    sub = problem.subset(members)
+    allowance, _, notes = service_limits(sub)
+    result = solve_depot(sub, allowance, k, deadline=deadline, solver=_WORK["solver"],
+                         gap_tolerance=_WORK["gap"], exact=_WORK["exact"])
+    return k, members, notes, result
+
+
+def solve_plan(problem: PlanningProblem, *, time_limit_s: float = 60.0, solver: str = "highs",
+               gap_tolerance: float = GAP_TOLERANCE, exact: bool | None = None,
+               jobs: int | None = None) -> PlanResult:
+    """Plan visits and loads for every terminal of ``problem`` (see the module text).
+
+    ``solver``: ``"highs"`` (CBC when HiGHS is not installed) or ``"cbc"``. ``exact``: prove
+    optimality to ~1e-9 instead of ``gap_tolerance`` (default: on for ≤ 20 terminals).
+    ``jobs``: worker processes for the depots (default: the CPUs, at most the depots).
+    The result's objective is the simulated expected cost of the plan; never raises for an
+    unreachable service target (the notes say why per terminal).
+    """
+    started = time.perf_counter()
+    deadline = started + time_limit_s
+    t_count, _, d_count = problem.shape
+    if exact is None:
+        exact = t_count <= 20
+    if problem.mode != "swap":
+        from planner.optimize.topup import solve_topup
+
+        return solve_topup(problem, time_limit_s=time_limit_s, solver=solver,
+                           gap_tolerance=gap_tolerance, exact=exact)
+    notes = [""] * t_count
+    depots = [k for k in range(len(problem.depots)) if (problem.depot_of == k).any()]
+    sizes = {k: int((problem.depot_of == k).sum()) for k in depots}
+    depots.sort(key=lambda k: -sizes[k])
+    workers = min(jobs or os.cpu_count() or 1, len(depots))
+    _WORK.update(problem=problem, solver=solver, gap=gap_tolerance, exact=exact)
+    tasks = [(k, deadline - 0.1 * time_limit_s) for k in depots]
+    results = []
+    try:
+        if workers > 1 and t_count >= 50:
+            import multiprocessing as mp
+
+            with mp.get_context("fork").Pool(workers) as pool:
+                results = list(pool.imap_unordered(_depot_task, tasks))
+        else:
+            results = [_depot_task(task) for task in tasks]
+    finally:
+        _WORK.clear()
+
+    visits = np.zeros((t_count, d_count), bool)
+    levels = np.full((t_count, d_count), -1)
+    bound = 0.0
+    statuses = []
+    log: list[str] = []
+    for k, members, depot_notes, res in results:
+        for t, note in zip(members, depot_notes):
+            notes[t] = note
+        visits[members] = res.visits
+        levels[members] = res.levels
+        bound += res.bound
+        statuses.append(res.status)
+        log.extend(res.log)
+        if res.soft:
+            for t in members:
+                extra = ("crews of depot " f"{problem.depots[k]} cannot serve every target: "
+                         "dry risk traded for visits")
+                notes[t] = f"{notes[t]}; {extra}" if notes[t] else extra
+    loads = np.where(visits, levels * problem.bundle[:, None], 0.0)
+    elapsed = time.perf_counter() - started
+    status = ("optimal" if all(s == "optimal" for s in statuses) else
+              "time_limit" if any(s == "time_limit" for s in statuses) else "feasible")
+    result = result_from_plan(problem, visits, loads, status=status, bound=bound,
+                              solver=_solver_name(solver), time_s=elapsed, notes=tuple(notes),
+                              log=tuple(log))
+    # the bound is proven on the same accounting; rounding may put it a hair above
+    if result.bound > result.objective:
+        result = result_from_plan(problem, visits, loads, status=status,
+                                  bound=min(bound, result.objective),
+                                  solver=_solver_name(solver), time_s=elapsed,
+                                  notes=tuple(notes), log=tuple(log))
+    return result
+
+
+def _solver_name(solver: str) -> str:
+    if solver == "highs" and milp.highs_available():
+        return "HiGHS (highspy; master through PuLP)"
+    return "CBC (through PuLP)"
