@@ -3,7 +3,8 @@
 Every plan must respect the model's rules (PlanningProblem docstring: bundles, limits, allowed
 days, crews, committed visits, the service target); it must cost no more than a baseline
 routine that is itself a feasible plan of the same model (both costed by `costs.simulate` on
-the same demand paths); and loosening the service target can only lower the optimum.
+the same demand paths); loosening the service target can only lower the optimum; and the
+optimum is the monolithic model's.
 """
 from __future__ import annotations
 
@@ -17,6 +18,7 @@ from hypothesis import strategies as st
 
 import planner.optimize as optimize
 from planner.costs import CostRates
+from planner.optimize.monolithic import solve_monolithic
 from planner.optimize.problem import PlanningProblem, dry_path_allowance, evaluate_plan
 
 # Reproducible examples (derandomized), no per-example deadline (solver times vary), few
@@ -177,3 +179,13 @@ def test_looser_service_target_costs_no_more(problem, extra):
     # such trade-offs are not ordered by cost.
     assume(meets_service_target(problem, tight.visits, tight.loads))
     assert loose.objective <= tight.objective * (1 + REL) + 1e-9
+
+
+@SETTINGS
+@given(problems())
+def test_plan_equals_the_monolithic_optimum(problem):
+    # the monolithic sample-average MILP (planner.optimize.monolithic) is the yardstick
+    visits, loads, reference, status = solve_monolithic(problem, time_limit_s=30)
+    assume(status == "optimal")      # "infeasible": crews cannot serve every allowance
+    result = optimize.solve_plan(problem, time_limit_s=30)
+    assert result.objective == pytest.approx(reference, rel=REL)
