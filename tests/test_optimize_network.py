@@ -236,3 +236,44 @@ def test_first_week_stable_between_horizons_14_and_21():
     same = ((a.visits[:, :7] == b.visits[:, :7]).all(axis=1)
             & np.isclose(a.loads[:, :7], b.loads[:, :7]).all(axis=1))
     assert same.mean() >= 0.9
+
+
+def test_topup_equals_full_enumeration_on_a_tiny_network():
+    problem = tiny_problem(5, daily=900.0, mode="topup")
+    result = solve_plan(problem, exact=True)
+    check_plan(problem, result)
+    assert result.objective == pytest.approx(brute_force(problem), rel=1e-7)
+    assert result.status == "optimal"
+
+
+def test_topup_larger_network_keeps_the_rules_and_says_nothing_is_proven():
+    # too many plans per terminal to enumerate: order-up-to levels refined on the paths
+    problem = synthetic_problem(terminals=12, depots=1, paths=40, seed=4, mode="topup",
+                                crew_share=0.5, committed_share=0.2)
+    result = solve_plan(problem, time_limit_s=60)
+    check_plan(problem, result)
+    assert result.status == "feasible" and result.bound == 0.0 and result.gap == 1.0
+
+
+def test_plan_and_orders_frames_describe_the_plan():
+    from planner.optimize import orders_frame, plan_frame
+
+    problem = synthetic_problem(terminals=10, depots=2, paths=40, seed=8, crew_share=0.6,
+                                committed_share=0.3)
+    result = solve_plan(problem, time_limit_s=60)
+    plan = plan_frame(problem, result)
+    horizon = problem.horizon_days
+    assert list(plan.columns) == ["terminal_id", "depot", "date", "load", "expected_residual",
+                                  "dry_probability", "reason"]
+    assert len(plan) == int(result.visits[:, :horizon].sum())
+    assert plan["date"].max() < problem.dates[horizon]
+    assert plan["load"].sum() == pytest.approx(result.loads[:, :horizon].sum())
+    committed = plan["reason"] == "committed"
+    assert committed.sum() == int(problem.committed[:, :horizon].sum())
+    assert plan.loc[~committed, "reason"].str.contains("dry risk").all()
+    assert ((plan["dry_probability"] >= 0) & (plan["dry_probability"] <= 1)).all()
+    orders = orders_frame(problem, result)
+    assert len(orders) == len(problem.depots) * horizon
+    assert orders["load_total"].sum() == pytest.approx(plan["load"].sum())
+    assert orders["expected_returns"].sum() == pytest.approx(plan["expected_residual"].sum())
+    assert orders["visits"].sum() == len(plan)

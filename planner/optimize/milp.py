@@ -19,7 +19,8 @@ INF = math.inf
 
 @dataclass
 class LinearModel:
-    """``min cost·x`` s.t. ``row_lower ≤ A x ≤ row_upper``, ``lower ≤ x ≤ upper``, some x integer."""
+    """``min cost·x`` s.t. ``row_lower ≤ A x ≤ row_upper``, ``lower ≤ x ≤ upper``, some x
+    integer."""
 
     name: str = "model"
     cost: list = field(default_factory=list)

@@ -17,7 +17,8 @@ Rules fixed here so that all solvers agree:
   1e-9)``, raised to the least number reachable by the terminal on its own (a visit with a full
   load on every allowed day; committed loads kept) when the target cannot be met; the result
   then says why in ``notes``.
-- The objective is the expected cost over all days (horizon + tail), by :func:`planner.costs.simulate`.
+- The objective is the expected cost over all days (horizon + tail), by
+  :func:`planner.costs.simulate`.
 """
 from __future__ import annotations
 

@@ -1,0 +1,266 @@
+"""Top-up mode: visit days and loads when cash is added to what the machine still holds.
+
+With top-up the residual stays in the machine, so a cycle's cost depends on every earlier load
+and the cycle separation of swap does not hold. What is done instead:
+
+- **Small terminals, exact.** When a terminal has few enough plans (every subset of its allowed
+  days × every load in whole bundles; plans × paths × days at most ``ENUMERATION_LIMIT``),
+  all of them are costed
+  with :func:`planner.costs.simulate` and each visit pattern keeps its cheapest plan. With every
+  terminal enumerated the master below sees every pattern, so the plan is optimal and the bound
+  proven.
+- **Larger terminals, order-up-to levels refined on the paths.** A visit pattern and an
+  order-up-to level per visit come from the swap model at the crew prices
+  (:mod:`planner.optimize.terminal`). Loading that level as the top-up amount keeps every path
+  at least as full as the swap plan (a top-up balance is at least the load), so the service
+  target still holds; the loads are then lowered or raised bundle by bundle while the exact
+  accounting (:func:`planner.costs.simulate`) says the cost falls and the target holds
+  (coordinate descent, vectorised over terminals). Those columns are exact in cost, not in
+  optimality, and no lower bound is proven for them: the result reports bound 0 (gap 100 %)
+  unless every terminal was enumerated.
+- **Network.** The same master as swap (one plan per terminal, crew limits per day, Lagrangian
+  prices from its LP), with the service target priced rather than imposed: a dry path above
+  the allowance costs more than any plan can save, so the master finds crew-feasible plans
+  even when the crews are too few, and prefers meeting every target whenever it can.
+"""
+from __future__ import annotations
+
+import itertools
+import math
+import time
+
+import numpy as np
+
+from planner.costs import simulate
+from planner.optimize import milp, terminal
+from planner.optimize.network import (ColumnPool, _soft_penalty, solve_master_lp,
+                                      solve_master_mip)
+from planner.optimize.problem import PlanningProblem, PlanResult, result_from_plan, service_limits
+
+ENUMERATION_LIMIT = 40_000_000     # plans × paths × days costed when enumerating a terminal
+CHUNK = 20_000
+STEPS = (-8, -4, -2, -1, 1, 2)
+
+
+def plan_count(problem: PlanningProblem, t: int) -> int:
+    """Number of plans of terminal ``t`` (subsets of its free allowed days × load levels)."""
+    free = int((problem.allowed[t] & ~problem.committed[t]).sum())
+    levels = int(round(problem.limit[t] / problem.bundle[t])) + 1
+    return (levels + 1) ** free
+
+
+def evaluate(problem: PlanningProblem, rows: np.ndarray, visits: np.ndarray,
+             loads: np.ndarray, allowance: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Exact ``(expected cost [n], dry paths above the allowance [n])`` of one plan per row."""
+    ledger = simulate(visits, np.where(visits, loads, 0.0), problem.start_balance[rows],
+                      problem.demand[rows], problem.limit[rows], problem.visit_fee[rows],
+                      problem.rates, problem.mode)
+    dry = ledger.dry_paths(problem.horizon_days).sum(axis=1)
+    return ledger.expected_cost(), np.maximum(dry - allowance[rows], 0)
+
+
+def enumerate_patterns(problem: PlanningProblem, t: int, allowance: np.ndarray,
+                       penalty: float) -> list[tuple[np.ndarray, np.ndarray, float]]:
+    """Every plan of terminal ``t``; per visit pattern the plan with the least priced cost
+    (expected cost + ``penalty`` per dry path above the allowance)."""
+    d_count = problem.shape[2]
+    committed = problem.committed[t]
+    free = np.flatnonzero(problem.allowed[t] & ~committed)
+    levels = problem.bundle[t] * np.arange(int(round(problem.limit[t] / problem.bundle[t])) + 1)
+    base_load = np.where(committed, np.nan_to_num(problem.fixed_load[t]), 0.0)
+    out = []
+    for chosen in itertools.product([False, True], repeat=len(free)):
+        days = free[np.array(chosen, bool)]
+        visit = committed.copy()
+        visit[days] = True
+        combos = (np.array(list(itertools.product(levels, repeat=len(days)))) if len(days)
+                  else np.zeros((1, 0)))
+        best = (math.inf, None)
+        for start in range(0, len(combos), CHUNK):
+            part = combos[start:start + CHUNK]
+            m = len(part)
+            loads = np.tile(base_load, (m, 1))
+            loads[:, days] = part
+            visits = np.tile(visit, (m, 1))
+            ledger = simulate(visits, loads, np.full(m, problem.start_balance[t]),
+                              np.broadcast_to(problem.demand[t], (m,) + problem.demand[t].shape),
+                              np.full(m, problem.limit[t]),
+                              np.broadcast_to(problem.visit_fee[t], (m, d_count)),
+                              problem.rates, problem.mode)
+            excess = np.maximum(ledger.dry_paths(problem.horizon_days).sum(axis=1)
+                                - allowance[t], 0)
+            priced = ledger.expected_cost() + penalty * excess
+            i = int(np.argmin(priced))
+            if priced[i] < best[0]:
+                best = (float(priced[i]), loads[i].copy())
+        out.append((visit, best[1], best[0]))
+    return out
+
+
+def refine_loads(problem: PlanningProblem, rows: np.ndarray, visits: np.ndarray,
+                 loads: np.ndarray, allowance: np.ndarray, penalty: float,
+                 passes: int = 4) -> tuple[np.ndarray, np.ndarray]:
+    """Coordinate descent on the free loads of fixed visit patterns (whole bundles within
+    ``0 … limit``), on the exact priced cost. Returns ``(loads, priced cost)``."""
+    loads = loads.copy()
+    cost, excess = evaluate(problem, rows, visits, loads, allowance)
+    priced = cost + penalty * excess
+    free = visits & ~problem.committed[rows]
+    order = np.cumsum(free, axis=1) - 1                      # index of each free visit
+    most = int(free.sum(axis=1).max(initial=0))
+    bundle = problem.bundle[rows][:, None]
+    limit = problem.limit[rows][:, None]
+    for _ in range(passes):
+        improved = False
+        for j in range(most):
+            at = free & (order == j)
+            has = at.any(axis=1)
+            if not has.any():
+                continue
+            for step in STEPS:
+                trial = np.where(at, np.clip(loads + step * bundle, 0.0, limit), loads)
+                changed = has & (trial != loads).any(axis=1)
+                if not changed.any():
+                    continue
+                sub = np.flatnonzero(changed)
+                c, e = evaluate(problem, rows[sub], visits[sub], trial[sub], allowance)
+                p = c + penalty * e
+                better = p < priced[sub] - 1e-9 * np.maximum(1.0, np.abs(priced[sub]))
+                if better.any():
+                    win = sub[better]
+                    loads[win] = trial[win]
+                    priced[win] = p[better]
+                    improved = True
+        if not improved:
+            break
+    return loads, priced
+
+
+def order_up_to_columns(problem: PlanningProblem, batch: terminal.TerminalBatch,
+                        rows: np.ndarray, price: np.ndarray, allowance: np.ndarray,
+                        penalty: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Plans of ``rows`` at day prices ``price`` ``[n, D]``: swap pattern and levels as top-up
+    loads, refined on the paths. Returns ``(visits, loads, priced cost without day prices)``."""
+    relaxed, _ = terminal.relaxed_plans(batch, price, rows)
+    plans = relaxed
+    binding = np.flatnonzero(terminal.dry_counts(batch, rows, relaxed) > batch.allowance[rows])
+    if binding.size:
+        heur, _ = terminal.target_plans(batch, price[binding], rows[binding])
+        found = np.isfinite(heur.value)
+        plans = terminal.Plans(relaxed.visits.copy(), relaxed.next_visit.copy(),
+                               relaxed.levels.copy(), relaxed.value.copy())
+        plans.put(binding, heur, found)
+    visits = plans.visits
+    loads = np.where(visits, np.maximum(plans.levels, 0) * problem.bundle[rows][:, None], 0.0)
+    committed = problem.committed[rows]
+    loads = np.where(committed, np.nan_to_num(problem.fixed_load[rows]), loads)
+    visits = visits | committed
+    loads, priced = refine_loads(problem, rows, visits, loads, allowance, penalty)
+    return visits, loads, priced
+
+
+def solve_topup(problem: PlanningProblem, *, time_limit_s: float = 60.0, solver: str = "highs",
+                gap_tolerance: float = 0.005, exact: bool = False) -> PlanResult:
+    """Plan a top-up network (see the module text). Never raises for unreachable targets."""
+    started = time.perf_counter()
+    deadline = started + 0.9 * time_limit_s
+    t_count, _, d_count = problem.shape
+    visits = np.zeros((t_count, d_count), bool)
+    loads = np.zeros((t_count, d_count))
+    notes = [""] * t_count
+    log: list[str] = []
+    proven = True
+    bound = 0.0
+    for k, name in enumerate(problem.depots):
+        members = np.flatnonzero(problem.depot_of == k)
+        if not members.size:
+            continue
+        sub = problem.subset(members)
+        allowance, _, depot_notes = service_limits(sub)
+        for t, note in zip(members, depot_notes):
+            notes[t] = note
+        v, lo, depot_bound, ok, depot_log, short = _solve_depot(sub, allowance, k, deadline,
+                                                                solver, gap_tolerance)
+        visits[members], loads[members] = v, lo
+        bound += depot_bound
+        proven &= ok
+        log.extend(depot_log)
+        for i, t in enumerate(members):
+            if short[i]:
+                extra = (f"crews of depot {name} cannot serve every target: dry risk traded "
+                         "for visits")
+                notes[t] = f"{notes[t]}; {extra}" if notes[t] else extra
+    elapsed = time.perf_counter() - started
+    result = result_from_plan(problem, visits, loads, status="optimal" if proven else "feasible",
+                              bound=bound if proven else 0.0, solver=_name(solver),
+                              time_s=elapsed, notes=tuple(notes), log=tuple(log))
+    if proven and result.gap > max(gap_tolerance, 1e-6):
+        result = result_from_plan(problem, visits, loads, status="feasible", bound=bound,
+                                  solver=_name(solver), time_s=elapsed, notes=tuple(notes),
+                                  log=tuple(log))
+    return result
+
+
+def _solve_depot(sub: PlanningProblem, allowance: np.ndarray, depot: int, deadline: float,
+                 solver: str, gap_tolerance: float):
+    t_count, _, d_count = sub.shape
+    name = sub.depots[depot]
+    crew = np.maximum(sub.crew_limit[depot], sub.committed.sum(axis=0)).astype(float)
+    penalty = _soft_penalty(sub)
+    pool = ColumnPool()
+    log: list[str] = []
+    work = sub.shape[1] * d_count
+    small = np.array([plan_count(sub, t) * work <= ENUMERATION_LIMIT for t in range(t_count)])
+    for t in np.flatnonzero(small):
+        for visit, load, cost in enumerate_patterns(sub, t, allowance, penalty):
+            pool.add(t, visit, _levels(sub, t, visit, load), cost)
+    large = np.flatnonzero(~small)
+    # committed visits only: always within the crews
+    base_visits = sub.committed.copy()
+    base_loads = np.where(base_visits, np.nan_to_num(sub.fixed_load), 0.0)
+    cost, excess = evaluate(sub, np.arange(t_count), base_visits, base_loads, allowance)
+    for t in range(t_count):
+        pool.add(t, base_visits[t], _levels(sub, t, base_visits[t], base_loads[t]),
+                 cost[t] + penalty * excess[t])
+    log.append(f"{name}: top-up, {small.sum()} terminal(s) enumerated, {large.size} by "
+               "order-up-to levels")
+    if large.size:
+        part = sub.subset(large)
+        batch = terminal.prepare_batch(part, allowance[large])
+        lam = np.zeros(d_count)
+        rows = np.arange(large.size)
+        for iteration in range(12):
+            price = sub.visit_fee[large] + lam[None, :]
+            v, lo, priced = order_up_to_columns(part, batch, rows, price, allowance[large],
+                                                penalty)
+            added = 0
+            for i, t in enumerate(large):
+                added += pool.add(t, v[i], _levels(sub, t, v[i], lo[i]), priced[i])
+            _, _, lam, _ = solve_master_lp(pool, t_count, name, crew, None, solver)
+            log.append(f"{name}: top-up round {iteration}: +{added} columns")
+            if added == 0 or time.perf_counter() > deadline:
+                break
+    remaining = max(deadline - time.perf_counter(), 1.0)
+    status, chosen, objective, mip_bound = solve_master_mip(pool, t_count, name, crew, solver,
+                                                            remaining, gap_tolerance / 4
+                                                            if large.size else 1e-9)
+    visits = np.array([pool.visits[j] for j in chosen])
+    levels = np.array([pool.levels[j] for j in chosen])
+    loads = np.where(visits, np.maximum(levels, 0) * sub.bundle[:, None], 0.0)
+    loads = np.where(sub.committed, np.nan_to_num(sub.fixed_load), loads)
+    _, excess = evaluate(sub, np.arange(t_count), visits, loads, allowance)
+    priced_excess = float(excess.sum() * penalty)
+    log.append(f"{name}: master MILP {status}, priced objective {objective:,.2f}")
+    proven = not large.size and status == "optimal"
+    return visits, loads, mip_bound - priced_excess, proven, log, excess > 0
+
+
+def _levels(problem: PlanningProblem, t: int, visit: np.ndarray, load: np.ndarray) -> np.ndarray:
+    """Loads as bundle counts (−1 without a visit), the pool's representation."""
+    return np.where(visit, np.rint(np.nan_to_num(load) / problem.bundle[t]), -1).astype(int)
+
+
+def _name(solver: str) -> str:
+    if solver == "highs" and milp.highs_available():
+        return "HiGHS (highspy; master through PuLP); top-up by enumeration or order-up-to"
+    return "CBC (through PuLP); top-up by enumeration or order-up-to"
