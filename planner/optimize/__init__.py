@@ -2,8 +2,15 @@
 
 - :mod:`planner.optimize.problem` — :class:`PlanningProblem`, :class:`PlanResult`,
   :func:`build_problem` and the rules every solver shares.
-- :mod:`planner.optimize.network` — :func:`solve_plan`, the decomposition by depot and terminal.
+- :mod:`planner.optimize.network` — :func:`solve_plan`, the decomposition by depot (crew
+  prices, master assignment) over exact per-terminal plans.
+- :mod:`planner.optimize.cycles` and :mod:`planner.optimize.terminal` — swap cycle costs for
+  every load level; one terminal's cheapest plan at given day prices.
+- :mod:`planner.optimize.topup` — the top-up mode.
+- :mod:`planner.optimize.milp` — the small array model layer (HiGHS, PuLP/CBC).
 - :mod:`planner.optimize.frames` — :func:`plan_frame` and :func:`orders_frame` for the run folder.
+- :mod:`planner.optimize.synthetic` — an invented network for tests and benchmarks.
+- :mod:`planner.optimize.monolithic` — the reference MILP for small instances.
 """
 from __future__ import annotations
 

@@ -438,10 +438,10 @@ def solve_plan(problem: PlanningProblem, *, time_limit_s: float = 60.0, solver: 
     tasks = [(k, deadline - 0.1 * time_limit_s) for k in depots]
     results = []
     try:
-        if workers > 1 and t_count >= 50:
-            import multiprocessing as mp
-
-            with mp.get_context("fork").Pool(workers) as pool:
+        context = _fork_context() if workers > 1 and t_count >= 50 else None
+        if context is not None:
+            # forked workers see the problem without copying it
+            with context.Pool(workers) as pool:
                 results = list(pool.imap_unordered(_depot_task, tasks))
         else:
             results = [_depot_task(task) for task in tasks]
@@ -467,6 +467,8 @@ def solve_plan(problem: PlanningProblem, *, time_limit_s: float = 60.0, solver: 
                          "dry risk traded for visits")
                 notes[t] = f"{notes[t]}; {extra}" if notes[t] else extra
     loads = np.where(visits, levels * problem.bundle[:, None], 0.0)
+    log.append(f"network: {len(depots)} depot(s) on {workers} worker(s) in "
+               f"{time.perf_counter() - started:.1f} s")
     elapsed = time.perf_counter() - started
     status = ("optimal" if all(s == "optimal" for s in statuses) else
               "time_limit" if any(s == "time_limit" for s in statuses) else "feasible")
@@ -480,6 +482,16 @@ def solve_plan(problem: PlanningProblem, *, time_limit_s: float = 60.0, solver: 
                                   solver=_solver_name(solver), time_s=elapsed,
                                   notes=tuple(notes), log=tuple(log))
     return result
+
+
+def _fork_context():
+    """A forking multiprocessing context, or ``None`` where the platform has none."""
+    import multiprocessing as mp
+
+    try:
+        return mp.get_context("fork")
+    except ValueError:
+        return None
 
 
 def _solver_name(solver: str) -> str:

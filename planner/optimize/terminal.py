@@ -20,6 +20,12 @@ Method, exact:
    path ``p``, ``Σ_{arcs from a dry on p} x ≤ z[p]``. Arcs whose own dry set exceeds the
    allowance are left out, and so are dominated levels (a level costing at least as much as a
    higher one, whose dry set is never larger; of levels with the same dry set the cheapest).
+   Given a plan that meets the target and costs ``U``, an arc is also left out when even the
+   relaxation cannot pass through it for less than ``U`` (forward + arc + backward value).
+
+Plans that meet the target quickly (columns between exact rounds, and the ``U`` above) come
+from pricing every dry path of a cycle (a shortest path per price, bisection on the price per
+terminal) and then lowering loads while the union of dry paths stays within the allowance.
 """
 from __future__ import annotations
 
@@ -38,7 +44,9 @@ BIG = 1 << 30
 class TerminalBatch:
     """Per-terminal data of some terminals of one problem, ready for pricing.
 
-    ``arc_ok`` ``[T, D, D + 1]``: a cycle from a visit on ``a`` to the next visit on ``b`` is
+    ``prefix`` ``[T, D + 1, P]``: cumulative demand before each day (day-major, so one day's
+    paths are contiguous). ``arc_ok`` ``[T, D, D + 1]``: a cycle from a visit on ``a`` to the
+    next visit on ``b`` is
     possible (``a`` allowed, ``b`` allowed or the end, no committed visit skipped);
     ``initial_ok`` ``[T, D + 1]`` likewise for the first visit; ``initial_cost`` is ``inf``
     where the first visit cannot be on ``b``. ``candidates``: the levels worth considering per
