@@ -1,0 +1,123 @@
+"""The main job end to end: scenario folder → run folder, through the library and the CLI."""
+from __future__ import annotations
+
+import json
+import os
+import signal
+import stat
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+from typer.testing import CliRunner
+
+import planner
+from planner.cli import app
+from planner.pipeline import PlanOptions, run_plan
+from planner.scenario import WEEKDAYS, load_scenario
+
+REPO = Path(__file__).resolve().parents[1]
+TINY = REPO / "planner" / "demo" / "tiny"
+FAST = PlanOptions(path_count=120, origins=2)
+RUN_FILES = {"plan.csv", "orders.csv", "costs.csv", "summary.json", "out_of_sample.csv",
+             "routines.csv", "report.html", "plan.xlsx"}
+
+
+@pytest.fixture(scope="module")
+def tiny_run(tmp_path_factory):
+    out = tmp_path_factory.mktemp("runs") / "tiny"
+    run = run_plan(TINY, out, options=FAST)
+    return run, out
+
+
+def test_run_folder_is_complete_and_owner_only(tiny_run):
+    _, out = tiny_run
+    assert {p.name for p in out.iterdir()} == RUN_FILES
+    assert stat.S_IMODE(out.stat().st_mode) == 0o700
+    assert all(stat.S_IMODE(p.stat().st_mode) == 0o600 for p in out.iterdir())
+
+
+def test_plan_respects_every_hard_limit(tiny_run):
+    run, out = tiny_run
+    scenario = load_scenario(TINY)
+    plan = pd.read_csv(out / "plan.csv", parse_dates=["date"])
+    assert list(plan.columns[:7]) == ["terminal_id", "depot", "date", "load",
+                                      "expected_residual", "dry_probability", "reason"]
+    t = scenario.terminals.loc[plan["terminal_id"]]
+    assert np.allclose(plan["load"] / t["bundle"].to_numpy(),
+                       np.round(plan["load"] / t["bundle"].to_numpy()))
+    assert (plan["load"].to_numpy() <= t["limit"].to_numpy() + 1e-9).all()
+    assert (plan["load"] > 0).all()
+    for (_, row), allowed in zip(plan.iterrows(), t["allowed_weekdays"]):
+        assert allowed[row["date"].weekday()], f"{row['terminal_id']} visited on a closed day"
+    per_day = plan.groupby(["depot", "date"]).size()
+    for (depot, date), n in per_day.items():
+        assert n <= scenario.depots.at[depot, WEEKDAYS[date.weekday()]]
+    horizon = pd.date_range(scenario.start_date, periods=scenario.horizon_days)
+    assert plan["date"].isin(horizon).all()
+
+
+def test_summary_reports_solver_service_and_fingerprint(tiny_run):
+    run, out = tiny_run
+    summary = json.loads((out / "summary.json").read_text())
+    assert summary["solver"]["status"] in ("optimal", "feasible", "time_limit")
+    assert summary["solver"]["gap"] <= 0.005
+    assert summary["input_fingerprint"] == load_scenario(TINY).fingerprint
+    assert summary["paths"] == {"count": 120, "seed": 11}
+    assert {"numpy", "pandas", "statsmodels", "pulp", "highspy"} <= set(summary["versions"])
+    costs = pd.read_csv(out / "costs.csv")
+    assert summary["costs"]["total"] == pytest.approx(costs["total"].sum(), abs=0.05)
+    routines = {r["routine"]: r for r in summary["routines"]}
+    assert routines["perfect-foresight bound"]["total"] <= routines["planner"]["total"] + 1e-6
+
+
+def test_same_inputs_and_seed_give_byte_identical_plan(tiny_run, tmp_path):
+    _, out = tiny_run
+    again = tmp_path / "again"
+    run_plan(TINY, again, options=PlanOptions(path_count=120, origins=2, evaluate=False,
+                                              report=False))
+    assert (again / "plan.csv").read_bytes() == (out / "plan.csv").read_bytes()
+    assert (again / "orders.csv").read_bytes() == (out / "orders.csv").read_bytes()
+
+
+def test_python_api_returns_frames_and_paths(tiny_run):
+    run = planner.plan_scenario(TINY, path_count=50, origins=2, evaluate=False)
+    assert isinstance(run.plan, pd.DataFrame) and isinstance(run.orders, pd.DataFrame)
+    assert isinstance(run.costs, pd.DataFrame) and len(run.costs) == 3
+    assert run.paths.shape == (3, 50, 14 + 7) and (run.paths >= 0).all()
+    assert isinstance(run.forecast.quantiles, pd.DataFrame)
+
+
+def test_cli_plan_writes_run_folder(tmp_path):
+    out = tmp_path / "cli"
+    result = CliRunner().invoke(app, ["plan", str(TINY), "--out", str(out), "--paths", "60",
+                                      "--quiet"])
+    assert result.exit_code == 0, result.output
+    assert (out / "plan.csv").is_file() and (out / "report.html").is_file()
+
+
+def test_cli_plan_json(tmp_path):
+    result = CliRunner().invoke(app, ["plan", str(TINY), "--out", str(tmp_path / "j"),
+                                      "--paths", "60", "--json"])
+    assert result.exit_code == 0, result.output
+    assert json.loads(result.output)["scenario"].startswith("Kestrel Valley Bank")
+
+
+def test_kill_during_plan_leaves_no_half_written_run_folder(tmp_path):
+    out = tmp_path / "killed"
+    env = {**os.environ, "PYTHONPATH": str(REPO)}
+    proc = subprocess.Popen([sys.executable, "-m", "planner", "plan", str(TINY), "--out",
+                             str(out), "--paths", "200", "--quiet"], cwd=tmp_path, env=env)
+    deadline = time.monotonic() + 120
+    # wait until the run folder is being written, then kill the process
+    while not list(tmp_path.glob(".killed.partial-*/*")):
+        assert proc.poll() is None, "plan finished before it could be interrupted"
+        assert time.monotonic() < deadline
+        time.sleep(0.002)
+    os.kill(proc.pid, signal.SIGKILL)
+    proc.wait()
+    assert not out.exists()
