@@ -219,6 +219,8 @@ def plan(
             return
         _print_warnings(result.scenario.warnings, quiet)
         console.print(_frame_table(result.summary_frame(), "Plan summary"))
+        for note in result.notes():
+            console.print(f"[yellow]target not reachable[/yellow] {note}", highlight=False)
         console.print(f"Run folder written: [bold]{result.run_folder}[/bold]")
 
     _run(debug, action)

@@ -109,17 +109,40 @@ class PlanRun:
         return self.forecast.paths
 
     def summary_frame(self) -> pd.DataFrame:
+        """The headline figures as a two-column table (figure, value as text)."""
         s = self.summary
+        cur = s["currency"]
         rows = [
-            ("terminals", s["network"]["terminals"]),
-            ("visits planned in horizon", s["network"]["visits"]),
-            ("cash to load", s["network"]["load_total"]),
-            ("expected cost (horizon + tail)", s["costs"]["total"]),
-            ("terminals over dry-risk target", s["service"]["terminals_over_target"]),
-            ("solver status", s["solver"]["status"]),
-            ("optimality gap", s["solver"]["gap"]),
+            ("terminals / visits planned in the horizon",
+             f"{s['network']['terminals']} / {s['network']['visits']}"),
+            ("cash to load in the horizon", f"{s['network']['load_total']:,.0f} {cur}"),
+            ("expected cost, horizon + tail (own paths)", f"{s['costs']['total']:,.0f} {cur}"),
+            ("solver status, gap", f"{s['solver']['status']}, {s['solver']['gap']:.3%}"),
+            ("terminals over the dry-risk target (own paths)",
+             str(s["service"]["terminals_over_target"])),
         ]
+        oos = s.get("out_of_sample")
+        if oos:
+            rows.append(("expected cost on fresh paths", f"{oos['expected_cost']:,.0f} {cur}"))
+            rows.append(("terminals over the target on fresh paths",
+                         str(oos["terminals_over_target"])))
+        routines = {r["kind"]: r for r in reversed(s.get("routines", []))}
+        base = [r for r in s.get("routines", []) if r["kind"] == "baseline"]
+        if base and "plan" in routines:
+            best = min(base, key=lambda r: r["total"])
+            saving = 1 - routines["plan"]["total"] / best["total"]
+            rows.append((f"best baseline routine: {best['routine']}",
+                         f"{best['total']:,.0f} {cur} (plan saves {saving:.1%})"))
+        if "bound" in routines and "plan" in routines:
+            rows.append(("perfect-foresight bound (fresh paths)",
+                         f"{routines['bound']['total']:,.0f} {cur} (plan / bound "
+                         f"{routines['plan']['total'] / routines['bound']['total']:.2f})"))
         return pd.DataFrame(rows, columns=["figure", "value"])
+
+    def notes(self) -> list[str]:
+        """Per-terminal notes of the optimizer (targets that cannot be met, and why)."""
+        return [f"{t['terminal_id']}: {t['note']}" for t in self.summary["terminals"]
+                if t.get("note")]
 
 
 def _apply_options(scenario: Scenario, options: PlanOptions) -> Scenario:
@@ -226,16 +249,27 @@ def evaluate_plan(scenario: Scenario, clean: Any, problem: Any, result: Any,
         visit_fee=problem.visit_fee, rates=problem.rates, mode=problem.mode)
     rows.append({"routine": "perfect-foresight bound", "kind": "bound",
                  "total": float(bound.expected_cost().sum())})
-    return pd.DataFrame(rows), check
+    frame = pd.DataFrame(rows)
+    for col in ("terminals_over_target", "visits"):
+        frame[col] = frame[col].astype("Int64")
+    return frame, check
 
 
 def json_records(frame: pd.DataFrame) -> list[dict[str, Any]]:
     """A frame as JSON-ready records (floats rounded to cents, NaN dropped)."""
     out = []
     for rec in frame.to_dict(orient="records"):
-        out.append({k: (round(v, 4 if "probability" in k else 2) if isinstance(v, float)
-                        else v) for k, v in rec.items()
-                    if not (isinstance(v, float) and np.isnan(v))})
+        row: dict[str, Any] = {}
+        for k, v in rec.items():
+            if pd.isna(v):
+                continue
+            if isinstance(v, (int, np.integer)) and not isinstance(v, bool):
+                row[k] = int(v)
+            elif isinstance(v, (float, np.floating)):
+                row[k] = round(float(v), 4 if "probability" in k else 2)
+            else:
+                row[k] = v
+        out.append(row)
     return out
 
 
