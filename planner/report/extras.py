@@ -47,10 +47,17 @@ class Evaluation:
 
     def best_baseline(self) -> dict[str, Any] | None:
         """The cheapest baseline routine as a dict (``name``, ``total``, parts), or None."""
-        base = self.table[self.table["kind"] == "baseline"]
-        if base.empty:
+        return self._cheapest("baseline")
+
+    def plan(self) -> dict[str, Any] | None:
+        """The plan's row (priced on the same paths as the baselines), or None."""
+        return self._cheapest("plan")
+
+    def _cheapest(self, kind: str) -> dict[str, Any] | None:
+        rows = self.table[self.table["kind"] == kind]
+        if rows.empty:
             return None
-        row = base.loc[base["total"].astype(float).idxmin()]
+        row = rows.loc[rows["total"].astype(float).idxmin()]
         return {k: (v if not isinstance(v, (np.floating,)) else float(v))
                 for k, v in row.items() if not (isinstance(v, float) and np.isnan(v))}
 

@@ -192,26 +192,33 @@ def _summary_section(ctx: _Context, evaluation: Evaluation | None) -> Section:
     sums = {p: float(pd.to_numeric(ctx.costs[p], errors="coerce").sum()) for p in parts}
     total = sums.get("total", sum(v for k, v in sums.items() if k != "total"))
     best = evaluation.best_baseline() if evaluation is not None else None
+    fresh = evaluation.plan() if evaluation is not None else None
     head = ["cost part", f"plan ({esc(ctx.currency)})", "share"]
-    if best is not None:
-        head += [f"best baseline: {esc(best['name'])}", "difference"]
+    if best is not None and fresh is not None:
+        # the baseline is priced on fresh paths, so compare it with the plan on those paths
+        head += ["plan on fresh paths", f"best baseline: {esc(best['name'])}", "difference"]
     rows = []
     for p in parts:
         cells = [esc(PART_LABELS.get(p, p.replace("_", " "))), _money(sums[p]),
                  _pct(sums[p] / total) if total else "—"]
-        if best is not None:
-            b = best.get(p)
-            cells += [_money(b) if b is not None else "—",
-                      _money(sums[p] - b, signed=True) if b is not None else "—"]
+        if best is not None and fresh is not None:
+            b, f = best.get(p), fresh.get(p)
+            cells += [_money(f) if f is not None else "—",
+                      _money(b) if b is not None else "—",
+                      _money(f - b, signed=True) if b is not None and f is not None else "—"]
         rows.append(cells)
+    caption = (f"Expected cost over the horizon and the {s.get('tail_days', '—')} tail days, "
+               "mean over the demand paths the plan was made from")
+    if fresh is not None:
+        caption += ("; the last columns price the plan and the routine on fresh demand paths "
+                    "drawn with an independent seed")
     cost_table = _table(head, rows, numeric=range(1, len(head)), row_classes=[
-        "total" if p == "total" else "" for p in parts], caption=(
-        f"Expected cost over the horizon and the {s.get('tail_days', '—')} tail days, "
-        "mean over the demand paths."))
+        "total" if p == "total" else "" for p in parts], caption=caption + ".")
 
     compare = ""
     if evaluation is not None:
-        compare = _evaluation_block(ctx, evaluation, total)
+        compare = _evaluation_block(ctx, evaluation,
+                                    float(fresh["total"]) if fresh is not None else total)
 
     worst = float(ctx.dry_probability.max()) if ctx.dry_probability.size else 0.0
     risk = _kv_table([
