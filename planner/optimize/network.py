@@ -27,7 +27,7 @@ from __future__ import annotations
 import math
 import os
 import time
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 
@@ -36,6 +36,7 @@ from planner.optimize.problem import (PlanningProblem, PlanResult, result_from_p
                                       service_limits)
 
 GAP_TOLERANCE = 0.005
+MIN_ROUNDS = 4
 
 
 @dataclass
@@ -75,6 +76,7 @@ class DepotResult:
     status: str
     soft: bool
     log: list
+    rounds: int = 0
 
 
 # --------------------------------------------------------------------------------------------
@@ -177,7 +179,8 @@ def _soft_penalty(problem: PlanningProblem) -> float:
 def solve_depot(problem: PlanningProblem, allowance: np.ndarray, depot: int, *,
                 deadline: float, solver: str = "highs", gap_tolerance: float = GAP_TOLERANCE,
                 exact: bool = False, soft: bool = False,
-                seed_pool: ColumnPool | None = None) -> DepotResult:
+                seed_pool: ColumnPool | None = None,
+                batch: terminal.TerminalBatch | None = None) -> DepotResult:
     """Plan the terminals of one depot (``problem`` holds only them) under its crew limits.
 
     ``exact``: price every terminal exactly in every round and prove optimality to ~1e-9
@@ -192,7 +195,10 @@ def solve_depot(problem: PlanningProblem, allowance: np.ndarray, depot: int, *,
     fee = problem.visit_fee
     penalty = _soft_penalty(problem) if soft else None
     # soft targets are a fallback for crews too few: heuristic columns, exact only when small
-    batch = terminal.prepare_batch(problem, allowance, soft_penalty=penalty)
+    if batch is None:
+        batch = terminal.prepare_batch(problem, allowance, soft_penalty=penalty)
+    else:      # out of time: keep the cycles already priced, price the excess dry paths
+        batch = replace(batch, soft_penalty=penalty)
     rows = np.arange(t_count)
     tight = 1e-9 if exact else gap_tolerance / 20.0
     log.append(f"{name}: {t_count} terminals, cycles priced in "
@@ -215,15 +221,14 @@ def solve_depot(problem: PlanningProblem, allowance: np.ndarray, depot: int, *,
     penalty_range = None
     force_exact = exact
     slack = np.zeros(d_count)
+    converged = False
     for iteration in range(500):
-        out_of_time = time.perf_counter() > deadline
         price = fee + lam[None, :]
         plans, lower, exact_done, penalty_range = _price(
-            batch, rows, price,
-            exact=force_exact or (out_of_time and best_bound == -math.inf and not soft),
+            batch, rows, price, exact=force_exact and time.perf_counter() < deadline,
             solver=solver, tight=tight, penalty_range=penalty_range, deadline=deadline)
-        if exact_done:
-            best_bound = max(best_bound, float(lower.sum() - lam @ crew))
+        # a Lagrangian bound for any λ ≥ 0 (weaker while `lower` is only the relaxation)
+        best_bound = max(best_bound, float(lower.sum() - lam @ crew))
         added = 0
         for t in rows:
             if np.isfinite(plans.value[t]) and plans.value[t] < mu[t] - 1e-9 * max(
@@ -236,9 +241,12 @@ def solve_depot(problem: PlanningProblem, allowance: np.ndarray, depot: int, *,
                    f"{value_lp:,.2f}, columns {len(pool.cost)} (+{added}), bound "
                    f"{best_bound:,.2f}, {time.perf_counter() - started:.1f} s")
         proved = exact_done and value_lp - best_bound <= tight * max(abs(value_lp), 1e-9)
-        if proved or (exact_done and added == 0):
+        converged = proved or (exact_done and added == 0)
+        if converged:
             break
-        if time.perf_counter() > deadline and best_bound > -math.inf:
+        # a few cheap rounds even when time is short: the first columns rarely fit the crews
+        if time.perf_counter() > deadline and (iteration >= MIN_ROUNDS
+                                              or slack.max(initial=0.0) <= 1e-6):
             log.append(f"{name}: time limit reached in the pricing rounds")
             break
         if soft and not exact and added == 0:
@@ -246,7 +254,8 @@ def solve_depot(problem: PlanningProblem, allowance: np.ndarray, depot: int, *,
         # heuristic rounds until they find nothing new, then an exact round
         force_exact = exact or (not exact_done and added == 0)
 
-    if not soft and slack.max(initial=0.0) > 1e-6:
+    if not soft and converged and slack.max(initial=0.0) > 1e-6:
+        # proven: even the LP over every plan needs more crews than there are
         log.append(f"{name}: the crews cannot serve every terminal's service target; the "
                    "targets become soft")
         return _soft_retry(problem, allowance, depot, deadline, solver, gap_tolerance, exact,
@@ -258,10 +267,10 @@ def solve_depot(problem: PlanningProblem, allowance: np.ndarray, depot: int, *,
     if chosen is None:
         if soft:
             raise RuntimeError(f"{name}: no plan respects the crew limits")  # cannot happen
-        log.append(f"{name}: no combination of plans respects the crews; the targets become "
-                   "soft")
+        log.append(f"{name}: no combination of plans found so far respects the crews; the "
+                   "targets become soft")
         return _soft_retry(problem, allowance, depot, deadline, solver, gap_tolerance, exact,
-                           log, pool)
+                           log, pool, None if converged else batch)
     visits = np.array([pool.visits[j] for j in chosen])
     levels = np.array([pool.levels[j] for j in chosen])
     bound = best_bound if best_bound > -math.inf else -math.inf
@@ -273,12 +282,14 @@ def solve_depot(problem: PlanningProblem, allowance: np.ndarray, depot: int, *,
     if soft:
         # the soft prices are not costs: report the plan's cost and a bound without them
         objective, bound = _without_soft_prices(batch, visits, levels, objective, bound)
-    return DepotResult(visits, levels, objective, bound, state, soft, log)
+    return DepotResult(visits, levels, objective, bound, state, soft, log, iteration + 1)
 
 
-def _soft_retry(problem, allowance, depot, deadline, solver, gap_tolerance, exact, log, pool):
+def _soft_retry(problem, allowance, depot, deadline, solver, gap_tolerance, exact, log, pool,
+                batch=None):
     result = solve_depot(problem, allowance, depot, deadline=deadline, solver=solver,
-                         gap_tolerance=gap_tolerance, exact=exact, soft=True, seed_pool=pool)
+                         gap_tolerance=gap_tolerance, exact=exact, soft=True, seed_pool=pool,
+                         batch=batch)
     result.log[:0] = log
     return result
 
@@ -398,7 +409,8 @@ _WORK: dict = {}
 
 
 def _depot_task(args):
-    k, deadline = args
+    k, budget, last = args
+    deadline = min(time.perf_counter() + budget, last)
     problem = _WORK["problem"]
     members = np.flatnonzero(problem.depot_of == k)
     sub = problem.subset(members)
@@ -435,7 +447,9 @@ def solve_plan(problem: PlanningProblem, *, time_limit_s: float = 60.0, solver: 
     depots.sort(key=lambda k: -sizes[k])
     workers = min(jobs or os.cpu_count() or 1, len(depots))
     _WORK.update(problem=problem, solver=solver, gap=gap_tolerance, exact=exact)
-    tasks = [(k, deadline - 0.1 * time_limit_s) for k in depots]
+    # each depot gets its share of the time (the workers run depots side by side)
+    last = deadline - 0.1 * time_limit_s
+    tasks = [(k, 0.9 * time_limit_s * workers * sizes[k] / t_count, last) for k in depots]
     results = []
     try:
         context = _fork_context() if workers > 1 and t_count >= 50 else None
@@ -452,6 +466,7 @@ def solve_plan(problem: PlanningProblem, *, time_limit_s: float = 60.0, solver: 
     levels = np.full((t_count, d_count), -1)
     bound = 0.0
     statuses = []
+    rounds = 0
     log: list[str] = []
     for k, members, depot_notes, res in results:
         for t, note in zip(members, depot_notes):
@@ -459,6 +474,7 @@ def solve_plan(problem: PlanningProblem, *, time_limit_s: float = 60.0, solver: 
         visits[members] = res.visits
         levels[members] = res.levels
         bound += res.bound
+        rounds += res.rounds
         statuses.append(res.status)
         log.extend(res.log)
         if res.soft:
@@ -474,13 +490,13 @@ def solve_plan(problem: PlanningProblem, *, time_limit_s: float = 60.0, solver: 
               "time_limit" if any(s == "time_limit" for s in statuses) else "feasible")
     result = result_from_plan(problem, visits, loads, status=status, bound=bound,
                               solver=_solver_name(solver), time_s=elapsed, notes=tuple(notes),
-                              log=tuple(log))
+                              iterations=rounds, log=tuple(log))
     # the bound is proven on the same accounting; rounding may put it a hair above
     if result.bound > result.objective:
         result = result_from_plan(problem, visits, loads, status=status,
                                   bound=min(bound, result.objective),
                                   solver=_solver_name(solver), time_s=elapsed,
-                                  notes=tuple(notes), log=tuple(log))
+                                  notes=tuple(notes), iterations=rounds, log=tuple(log))
     return result
 
 

@@ -457,14 +457,18 @@ def exact_plan(batch: TerminalBatch, t: int, day_price: np.ndarray, *,
 
 
 def target_plans(batch: TerminalBatch, day_price: np.ndarray, rows: np.ndarray, *,
-                 steps: int = 12, penalty_range: tuple[np.ndarray, np.ndarray] | None = None
+                 steps: int | None = None,
+                 penalty_range: tuple[np.ndarray, np.ndarray] | None = None
                  ) -> tuple[Plans, tuple[np.ndarray, np.ndarray]]:
     """Plans of ``rows`` that meet the service target, found by pricing each cycle's dry paths
     (bisection on the price per dry path, in log scale) and then lowering loads while the
     union of dry paths stays within the allowance. ``value`` is ``inf`` where none was found.
 
-    Returns the plans and the final bisection range (to start the next call from)."""
+    Returns the plans and the final bisection range (to start the next call from); ``steps``
+    of bisection (default 12 from scratch, 6 from a previous range)."""
     allowance = batch.allowance[rows]
+    if steps is None:
+        steps = 12 if penalty_range is None else 6
     if penalty_range is None:
         low = np.full(rows.size, 1e-2)
         high = np.full(rows.size, 1e7)
