@@ -84,7 +84,7 @@ class PlanRun:
 
     - ``plan``: one row per visit in the horizon (terminal_id, depot, date, load,
       expected_residual, dry_probability, reason).
-    - ``orders``: cash per depot and day (depot, date, visits, load_total, expected_return).
+    - ``orders``: cash per depot and day (depot, date, visits, load_total, expected_returns).
     - ``costs``: expected cost parts per terminal (currency units over horizon + tail days).
     - ``paths``: demand paths [terminal, path, day] over ``dates``.
     - ``summary``: the content of ``summary.json``.

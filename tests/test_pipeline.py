@@ -121,3 +121,17 @@ def test_kill_during_plan_leaves_no_half_written_run_folder(tmp_path):
     os.kill(proc.pid, signal.SIGKILL)
     proc.wait()
     assert not out.exists()
+
+
+def test_report_and_spreadsheet_read_the_orders_the_run_wrote(tiny_run):
+    import openpyxl
+
+    run, out = tiny_run
+    orders = pd.read_csv(out / "orders.csv")
+    assert list(orders.columns) == ["depot", "date", "visits", "load_total", "expected_returns"]
+    assert orders["expected_returns"].sum() > 0
+    book = openpyxl.load_workbook(out / "plan.xlsx")
+    values = [c.value for ws in book.worksheets for row in ws.iter_rows() for c in row
+              if isinstance(c.value, (int, float))]
+    for amount in orders.loc[orders["expected_returns"] > 0, "expected_returns"]:
+        assert any(abs(v - amount) < 0.01 for v in values), amount

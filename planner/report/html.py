@@ -333,7 +333,7 @@ def _orders_section(ctx: _Context) -> Section:
         if i is None or j is None:
             continue
         load[i, j] += float(r.get("load_total", 0.0))
-        back[i, j] += float(r.get("expected_return", 0.0))
+        back[i, j] += float(r.get("expected_returns", 0.0))
     fig = charts.orders_chart(ctx.depots, ctx.dates, load, back)
     sub = "".join("<th class='num'>to load</th><th class='num'>back (expected)</th>"
                   for _ in ctx.depots)

@@ -232,7 +232,7 @@ def plan_frames(problem, result) -> tuple[pd.DataFrame, pd.DataFrame]:
                                       names=["depot", "date"])
     orders = (plan.groupby(["depot", "date"])
               .agg(visits=("load", "size"), load_total=("load", "sum"),
-                   expected_return=("expected_residual", "sum"))
+                   expected_returns=("expected_residual", "sum"))
               .reindex(grid, fill_value=0).reset_index())
     orders["visits"] = orders["visits"].astype(int)
     return plan, orders

@@ -214,7 +214,7 @@ def _summary_sheet(ws, run: Any, money_format: str) -> None:
         ws.cell(row=r, column=1).alignment = Alignment(horizontal="left")
         _put(ws.cell(row=r, column=2), str(o["depot"]))
         _put(ws.cell(row=r, column=3), int(o.get("visits", 0)))
-        for j, col in ((4, "load_total"), (5, "expected_return")):
+        for j, col in ((4, "load_total"), (5, "expected_returns")):
             cell = ws.cell(row=r, column=j)
             _put(cell, _number(o.get(col)))
             cell.number_format = money_format
