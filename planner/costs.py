@@ -35,6 +35,7 @@ import pandas as pd
 
 MODES = ("swap", "topup")
 PART_COLUMNS = ("carry", "visit", "handling", "dry_penalty", "shortfall_penalty", "total")
+REDUCE_BLOCK = 1 << 20          # values per block when summing a ledger without full copies
 
 
 @dataclass(frozen=True)
@@ -112,17 +113,30 @@ class Ledger:
         return (self.rates.shortfall_penalty_per_1000 / 1000.0) * self.shortfall
 
     def _part_sums(self) -> dict[str, np.ndarray]:
-        """``[terminal, path]`` sums over days of each cost part (without big temporaries
-        beyond the cached arrays)."""
+        """``[terminal, path]`` sums over days of each cost part, computed block by block of
+        terminals so that no full-size temporary is needed."""
         if "_sums" not in self.__dict__:
             r = self.rates
+            t_count, p_count, d_count = self.balance_open.shape
+            held = np.empty((t_count, p_count))
+            short = np.empty((t_count, p_count))
+            dry = np.empty((t_count, p_count))
+            step = max(1, REDUCE_BLOCK // max(p_count * d_count, 1))
+            for i in range(0, t_count, step):
+                b, d = self.balance_open[i:i + step], self.demand[i:i + step]
+                gap = b - d
+                dry[i:i + step] = (gap < 0).sum(axis=2)          # demand > balance
+                np.maximum(gap, 0.0, out=gap)
+                held[i:i + step] = gap.sum(axis=2)
+                np.subtract(d, b, out=gap)
+                np.maximum(gap, 0.0, out=gap)
+                short[i:i + step] = gap.sum(axis=2)
             sums = {
-                "carry": r.carry_rate_daily * self.end_balance.sum(axis=2),
+                "carry": r.carry_rate_daily * held,
                 "handling": (r.handling_per_1000 / 1000.0)
                 * (self.returned.sum(axis=2) + self.loads.sum(axis=1)[:, None]),
-                "dry_penalty": r.dry_day_penalty * self.dry.sum(axis=2),
-                "shortfall_penalty": (r.shortfall_penalty_per_1000 / 1000.0)
-                * self.shortfall.sum(axis=2),
+                "dry_penalty": r.dry_day_penalty * dry,
+                "shortfall_penalty": (r.shortfall_penalty_per_1000 / 1000.0) * short,
             }
             self.__dict__["_sums"] = sums
         return self.__dict__["_sums"]
@@ -156,16 +170,23 @@ class Ledger:
     def dry_probability(self, days: int | None = None) -> np.ndarray:
         """``[terminal]`` share of paths with at least one dry day in the first ``days`` days
         (all days when ``None``)."""
-        dry = self.dry if days is None else self.dry[:, :, :days]
-        if dry.shape[2] == 0:
-            return np.zeros(dry.shape[0])
-        return dry.any(axis=2).mean(axis=1)
+        return self.dry_paths(days).mean(axis=1)
 
     def dry_paths(self, days: int | None = None) -> np.ndarray:
         """``[terminal, path]`` bool: the path has at least one dry day in the first ``days``
         days (all days when ``None``)."""
-        dry = self.dry if days is None else self.dry[:, :, :days]
-        return dry.any(axis=2)
+        t_count, p_count, d_count = self.balance_open.shape
+        days = d_count if days is None else min(days, d_count)
+        if days <= 0:
+            return np.zeros((t_count, p_count), bool)
+        if "dry" in self.__dict__:
+            return self.dry[:, :, :days].any(axis=2)
+        out = np.empty((t_count, p_count), bool)
+        step = max(1, REDUCE_BLOCK // max(p_count * days, 1))
+        for i in range(0, t_count, step):
+            out[i:i + step] = (self.demand[i:i + step, :, :days]
+                               > self.balance_open[i:i + step, :, :days]).any(axis=2)
+        return out
 
 
 def simulate(visits: np.ndarray, loads: np.ndarray, start_balance: np.ndarray,
