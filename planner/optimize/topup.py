@@ -9,6 +9,10 @@ and the cycle separation of swap does not hold. What is done instead:
   with :func:`planner.costs.simulate` and each visit pattern keeps its cheapest plan. With every
   terminal enumerated the master below sees every pattern, so the plan is optimal and the bound
   proven.
+- **Fewer patterns than plans.** When the visit patterns alone are few enough (patterns ×
+  paths × days at most ``PATTERN_LIMIT``), every pattern is kept, each with loads found by the
+  coordinate descent below from three starts (full loads; the mean and the 95 % quantile of
+  the demand until the next visit). Exact in cost, not proven optimal.
 - **Larger terminals, order-up-to levels refined on the paths.** A visit pattern and an
   order-up-to level per visit come from the swap model at the crew prices
   (:mod:`planner.optimize.terminal`). Loading that level as the top-up amount keeps every path
@@ -16,8 +20,8 @@ and the cycle separation of swap does not hold. What is done instead:
   target still holds; the loads are then lowered or raised bundle by bundle while the exact
   accounting (:func:`planner.costs.simulate`) says the cost falls and the target holds
   (coordinate descent, vectorised over terminals). Those columns are exact in cost, not in
-  optimality, and no lower bound is proven for them: the result reports bound 0 (gap 100 %)
-  unless every terminal was enumerated.
+  optimality, and no lower bound is proven for them (nor for the patterns above): the result
+  reports bound 0 (gap 100 %) unless every terminal was enumerated.
 - **Network.** The same master as swap (one plan per terminal, crew limits per day, Lagrangian
   prices from its LP), with the service target priced rather than imposed: a dry path above
   the allowance costs more than any plan can save, so the master finds crew-feasible plans
@@ -34,12 +38,18 @@ import numpy as np
 from planner.costs import simulate
 from planner.optimize import milp, terminal
 from planner.optimize.network import (ColumnPool, _soft_penalty, solve_master_lp,
-                                      solve_master_mip)
+                                      solve_master_mip)  # noqa: F401
 from planner.optimize.problem import PlanningProblem, PlanResult, result_from_plan, service_limits
 
 ENUMERATION_LIMIT = 40_000_000     # plans × paths × days costed when enumerating a terminal
+PATTERN_LIMIT = 5_000_000          # patterns × paths × days when every pattern gets its loads
 CHUNK = 20_000
-STEPS = (-8, -4, -2, -1, 1, 2)
+STEPS = (-8, -4, -2, -1, 1, 2, 4, 8)
+
+
+def pattern_count(problem: PlanningProblem, t: int) -> int:
+    """Number of visit patterns of terminal ``t`` (subsets of its free allowed days)."""
+    return 2 ** int((problem.allowed[t] & ~problem.committed[t]).sum())
 
 
 def plan_count(problem: PlanningProblem, t: int) -> int:
@@ -136,6 +146,54 @@ def refine_loads(problem: PlanningProblem, rows: np.ndarray, visits: np.ndarray,
     return loads, priced
 
 
+def pattern_columns(problem: PlanningProblem, t: int, allowance: np.ndarray,
+                    penalty: float) -> list[tuple[np.ndarray, np.ndarray, float]]:
+    """Every visit pattern of terminal ``t``, each with loads found by coordinate descent from
+    three starts (full loads; the mean and the 95 % quantile of the demand until the next
+    visit, in whole bundles). Returns ``(visits, loads, priced cost)`` per pattern."""
+    d_count = problem.shape[2]
+    committed = problem.committed[t]
+    free = np.flatnonzero(problem.allowed[t] & ~committed)
+    patterns = np.array(list(itertools.product([False, True], repeat=len(free))),
+                        dtype=bool).reshape(-1, len(free))
+    visits = np.tile(committed, (len(patterns), 1))
+    visits[:, free] = patterns
+    nxt = _next_visit(visits)
+    prefix = np.concatenate([np.zeros((problem.shape[1], 1)),
+                             np.cumsum(problem.demand[t], axis=1)], axis=1)   # [P, D + 1]
+    need = prefix[:, nxt] - prefix[:, np.arange(d_count)][:, None, :]        # [P, n, D]
+    bundle, limit = problem.bundle[t], problem.limit[t]
+    fixed = np.where(committed, np.nan_to_num(problem.fixed_load[t]), 0.0)
+    starts = [np.full(visits.shape, limit), np.mean(need, axis=0),
+              np.quantile(need, 0.95, axis=0)]
+    best_load = np.zeros(visits.shape)
+    best = np.full(len(visits), np.inf)
+    for start in starts:
+        loads = np.clip(np.ceil(start / bundle) * bundle, 0.0, limit)
+        loads = np.where(committed, fixed, np.where(visits, loads, 0.0))
+        step = max(1, 4_000_000 // max(problem.shape[1] * d_count, 1))
+        for i in range(0, len(visits), step):
+            part = slice(i, i + step)
+            rows = np.full(len(visits[part]), t)
+            found, priced = refine_loads(problem, rows, visits[part], loads[part], allowance,
+                                         penalty)
+            better = priced < best[part]
+            best[part] = np.where(better, priced, best[part])
+            best_load[part] = np.where(better[:, None], found, best_load[part])
+    return [(visits[i], best_load[i], float(best[i])) for i in range(len(visits))]
+
+
+def _next_visit(visits: np.ndarray) -> np.ndarray:
+    """``[n, D]`` the next visit after each day (``D`` when none)."""
+    n, d_count = visits.shape
+    out = np.full((n, d_count), d_count)
+    nxt = np.full(n, d_count)
+    for d in range(d_count - 1, -1, -1):
+        out[:, d] = nxt
+        nxt = np.where(visits[:, d], d, nxt)
+    return out
+
+
 def order_up_to_columns(problem: PlanningProblem, batch: terminal.TerminalBatch,
                         rows: np.ndarray, price: np.ndarray, allowance: np.ndarray,
                         penalty: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -214,7 +272,16 @@ def _solve_depot(sub: PlanningProblem, allowance: np.ndarray, depot: int, deadli
     for t in np.flatnonzero(small):
         for visit, load, cost in enumerate_patterns(sub, t, allowance, penalty):
             pool.add(t, visit, _levels(sub, t, visit, load), cost)
-    large = np.flatnonzero(~small)
+    few = np.array([not small[t] and pattern_count(sub, t) * work <= PATTERN_LIMIT
+                    for t in range(t_count)])
+    half_time = time.perf_counter() + 0.5 * (deadline - time.perf_counter())
+    for t in np.flatnonzero(few):
+        if time.perf_counter() > half_time:
+            few[t] = False               # out of time: the order-up-to columns instead
+            continue
+        for visit, load, cost in pattern_columns(sub, t, allowance, penalty):
+            pool.add(t, visit, _levels(sub, t, visit, load), cost)
+    large = np.flatnonzero(~small & ~few)
     # committed visits only: always within the crews
     base_visits = sub.committed.copy()
     base_loads = np.where(base_visits, np.nan_to_num(sub.fixed_load), 0.0)
@@ -222,8 +289,8 @@ def _solve_depot(sub: PlanningProblem, allowance: np.ndarray, depot: int, deadli
     for t in range(t_count):
         pool.add(t, base_visits[t], _levels(sub, t, base_visits[t], base_loads[t]),
                  cost[t] + penalty * excess[t])
-    log.append(f"{name}: top-up, {small.sum()} terminal(s) enumerated, {large.size} by "
-               "order-up-to levels")
+    log.append(f"{name}: top-up, {small.sum()} terminal(s) enumerated, {few.sum()} by every "
+               f"pattern with searched loads, {large.size} by order-up-to levels")
     if large.size:
         part = sub.subset(large)
         batch = terminal.prepare_batch(part, allowance[large])
@@ -240,6 +307,19 @@ def _solve_depot(sub: PlanningProblem, allowance: np.ndarray, depot: int, deadli
             log.append(f"{name}: top-up round {iteration}: +{added} columns")
             if added == 0 or time.perf_counter() > deadline:
                 break
+        # local search around each terminal's best plan at the last crew prices
+        price = sub.visit_fee + lam[None, :]
+        for _ in range(2):
+            if time.perf_counter() > deadline:
+                break
+            best_v, best_l, best_c = _best_columns(pool, sub, large, price)
+            v, lo, priced = neighbour_plans(part, np.arange(large.size), best_v, best_l,
+                                            allowance[large], penalty, price[large])
+            added = sum(pool.add(t, v[i], _levels(sub, t, v[i], lo[i]), priced[i])
+                        for i, t in enumerate(large) if np.isfinite(priced[i]))
+            log.append(f"{name}: top-up local search: +{added} columns")
+            if not added:
+                break
     remaining = max(deadline - time.perf_counter(), 1.0)
     status, chosen, objective, mip_bound = solve_master_mip(pool, t_count, name, crew, solver,
                                                             remaining, gap_tolerance / 4
@@ -251,8 +331,95 @@ def _solve_depot(sub: PlanningProblem, allowance: np.ndarray, depot: int, deadli
     _, excess = evaluate(sub, np.arange(t_count), visits, loads, allowance)
     priced_excess = float(excess.sum() * penalty)
     log.append(f"{name}: master MILP {status}, priced objective {objective:,.2f}")
-    proven = not large.size and status == "optimal"
+    proven = not large.size and not few.any() and status == "optimal"
     return visits, loads, mip_bound - priced_excess, proven, log, excess > 0
+
+
+def _best_columns(pool: ColumnPool, problem: PlanningProblem, terminals: np.ndarray,
+                  price: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Per terminal the pool's plan cheapest at day prices ``price`` ``[T, D]``."""
+    term, visits, cost = pool.arrays()
+    priced = cost + (visits * price[term]).sum(axis=1) - (visits * problem.visit_fee[term]).sum(
+        axis=1)
+    out_v = np.zeros((terminals.size, problem.shape[2]), bool)
+    out_l = np.zeros((terminals.size, problem.shape[2]))
+    out_c = np.full(terminals.size, np.inf)
+    for i, t in enumerate(terminals):
+        mine = np.flatnonzero(term == t)
+        j = mine[np.argmin(priced[mine])]
+        out_v[i] = pool.visits[j]
+        out_l[i] = np.where(pool.visits[j], np.maximum(pool.levels[j], 0) * problem.bundle[t],
+                            0.0)
+        out_c[i] = priced[j]
+    return out_v, out_l, out_c
+
+
+def neighbour_plans(problem: PlanningProblem, rows: np.ndarray, visits: np.ndarray,
+                    loads: np.ndarray, allowance: np.ndarray, penalty: float,
+                    price: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """For each plan, the best of its neighbours (one free visit dropped, added on an allowed
+    day, or moved a day), loads refined by coordinate descent; judged at day prices
+    ``price`` ``[n, D]``. Returns ``(visits, loads, priced cost without day prices)``, cost
+    ``inf`` where no neighbour is better."""
+    d_count = problem.shape[2]
+    cand_row, cand_v, cand_l = [], [], []
+    committed = problem.committed[rows]
+    for i in range(rows.size):
+        v, lo = visits[i], loads[i]
+        free = np.flatnonzero(v & ~committed[i])
+        open_days = np.flatnonzero(problem.allowed[rows[i]] & ~v)
+        mean_day = problem.demand[rows[i]].mean(axis=0)
+        moves = [(d, None) for d in free] + [(None, d) for d in open_days]
+        moves += [(d, d + s) for d in free for s in (-1, 1)
+                  if 0 <= d + s < d_count and d + s in set(open_days)]
+        for drop, add in moves:
+            nv, nl = v.copy(), lo.copy()
+            carried = 0.0
+            if drop is not None:
+                nv[drop] = False
+                carried = nl[drop]
+                nl[drop] = 0.0
+            starts = [nl]
+            if add is not None:
+                nv[add] = True
+                nxt = np.flatnonzero(nv[add + 1:])
+                end = add + 1 + nxt[0] if nxt.size else d_count
+                need = mean_day[add:end].sum()
+                bundle = problem.bundle[rows[i]]
+                top = problem.limit[rows[i]]
+                # the new visit starts from the moved load, the mean need, and a full load
+                starts = []
+                for first in {carried, min(top, math.ceil(need / bundle) * bundle), top}:
+                    if first or not carried:
+                        start = nl.copy()
+                        start[add] = first
+                        starts.append(start)
+            for start in starts:
+                cand_row.append(i)
+                cand_v.append(nv)
+                cand_l.append(start)
+    best_v, best_l = visits.copy(), loads.copy()
+    best = np.full(rows.size, np.inf)
+    if not cand_row:
+        return best_v, best_l, best
+    base_cost, base_excess = evaluate(problem, rows, visits, loads, allowance)
+    base = base_cost + penalty * base_excess + (visits * price).sum(axis=1)
+    cand_row = np.array(cand_row)
+    cand_v, cand_l = np.array(cand_v), np.array(cand_l)
+    step = max(1, 4_000_000 // max(problem.shape[1] * d_count, 1))
+    for k in range(0, cand_row.size, step):
+        part = slice(k, k + step)
+        r = cand_row[part]
+        found, priced = refine_loads(problem, rows[r], cand_v[part], cand_l[part], allowance,
+                                     penalty, passes=2)
+        judged = priced + (cand_v[part] * price[r]).sum(axis=1)
+        for q in np.argsort(judged):
+            i = r[q]
+            if judged[q] < base[i] - 1e-9 * abs(base[i]):
+                base[i] = judged[q]
+                best_v[i], best_l[i] = cand_v[part][q], found[q]
+                best[i] = priced[q]
+    return best_v, best_l, best
 
 
 def _levels(problem: PlanningProblem, t: int, visit: np.ndarray, load: np.ndarray) -> np.ndarray:
