@@ -129,16 +129,23 @@ class StageProgress:
 def _frame_table(frame, title: str, max_rows: int = 200) -> Table:
     table = Table(title=title, title_justify="left")
     for col in frame.columns:
-        table.add_column(str(col), justify="right" if frame[col].dtype.kind in "iuf" else "left")
+        table.add_column(str(col).replace("_", " "),
+                         justify="right" if frame[col].dtype.kind in "iuf" else "left")
     for _, row in frame.head(max_rows).iterrows():
         table.add_row(*[_cell(v) for v in row])
     return table
 
 
 def _cell(v) -> str:
+    import math
+
     import pandas as pd
 
+    if v is None or (isinstance(v, float) and math.isnan(v)) or v is pd.NA:
+        return "—"
     if isinstance(v, float):
+        if v.is_integer() and abs(v) >= 1:
+            return f"{v:,.0f}"
         return f"{v:,.3f}" if abs(v) < 10 else f"{v:,.0f}"
     if isinstance(v, pd.Timestamp):
         return f"{v:%Y-%m-%d}"
@@ -397,15 +404,32 @@ def compare(
             return
         if quiet:
             return
-        cols = [c for c in ("variant", "changes", "expected_cost", "cost_delta",
-                            "cost_delta_low", "cost_delta_high", "dry_days_delta",
-                            "terminals_over_target") if c in result.table.columns]
-        console.print(_frame_table(result.table[cols], "What-if variants against the base"))
+        console.print(_frame_table(_compare_view(result.table, result.currency),
+                                   "What-if variants against the base"))
         for line in result.summary.get("headline", []):
             console.print(line, markup=False)
         console.print(f"Run folder written: [bold]{out}[/bold]")
 
     _run(debug, action)
+
+
+def _compare_view(table, currency: str):
+    """The comparison table with the columns a terminal has room for."""
+    import pandas as pd
+
+    def change(r) -> str:
+        if r["variant"] == table["variant"].iloc[0]:
+            return "base"
+        return (f"{r['cost_delta']:+,.0f} ({r['cost_delta_low']:+,.0f} … "
+                f"{r['cost_delta_high']:+,.0f})")
+
+    return pd.DataFrame({
+        "variant": table["variant"],
+        f"expected cost ({currency})": table["expected_cost"].round(0),
+        "change, 95 % interval": table.apply(change, axis=1),
+        "dry days change": table["dry_days_delta"].round(2),
+        "terminals over target": table["terminals_over_target"],
+    })
 
 
 def run() -> None:  # pragma: no cover - console entry for `python -m planner`

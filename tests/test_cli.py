@@ -10,7 +10,8 @@ from planner import __version__
 from planner.cli import app
 
 runner = CliRunner()
-COMMANDS = ["check", "plan", "forecast", "diagnose"]
+COMMANDS = ["check", "plan", "forecast", "diagnose", "backtest", "compare"]
+TINY = __import__("pathlib").Path(__file__).resolve().parents[1] / "planner" / "demo" / "tiny"
 
 
 def _plain(text: str) -> str:
@@ -64,3 +65,28 @@ def test_check_json(tiny_dir):
     data = json.loads(result.output)
     assert data["network"]["terminals"] == 3
     assert {r["terminal_id"] for r in data["terminals"]} == {"BRH-001", "BRH-002", "BRH-003"}
+
+
+def test_compare_on_tiny_writes_tables_and_chart(tmp_path):
+    out = tmp_path / "cmp"
+    result = runner.invoke(app, ["compare", str(TINY), "--set", "costs.visit_fee=+15%",
+                                 "--paths", "60", "--out", str(out)], terminal_width=160)
+    assert result.exit_code == 0, result.output
+    assert "costs.visit_fee=+15%" in result.output
+    assert {"compare.csv", "compare.json", "compare.png"} <= {p.name for p in out.iterdir()}
+
+
+def test_compare_with_an_unknown_setting_is_bad_input(tmp_path):
+    result = runner.invoke(app, ["compare", str(TINY), "--set", "costs.visit_fees=200",
+                                 "--out", str(tmp_path / "x")])
+    assert result.exit_code == 2
+    assert "visit_fee" in result.output and "Traceback" not in result.output
+
+
+def test_backtest_on_tiny_writes_tables_and_chart(tmp_path):
+    out = tmp_path / "bt"
+    result = runner.invoke(app, ["backtest", str(TINY), "--weeks", "2", "--paths", "60",
+                                 "--origins", "2", "--out", str(out)], terminal_width=160)
+    assert result.exit_code == 0, result.output
+    assert "planner" in result.output and "perfect-foresight" in result.output.lower()
+    assert {"backtest.csv", "backtest.json", "backtest.png"} <= {p.name for p in out.iterdir()}
