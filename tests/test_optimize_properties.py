@@ -87,7 +87,7 @@ def problems(draw, *, crews: str = "random", modes: tuple[str, ...] = MODES,
         bundle=bundle,
         allowed=allowed,
         fixed_load=fixed_load,
-        visit_fee=np.where(pd.date_range("2026-11-02", periods=d_count).weekday >= 5, 180.0,
+        visit_fee=np.where(pd.date_range("2026-11-02", periods=d_count).day_of_week >= 5, 180.0,
                            120.0)[None, :].repeat(t_count, axis=0),
         crew_limit=crew,
         rates=rates,
@@ -139,7 +139,7 @@ def test_plan_keeps_the_rules(problem):
 def weekday_routine(problem: PlanningProblem, weekdays: tuple[int, ...]):
     """Baseline routine: visit on fixed weekdays (where allowed) and fill to the limit;
     committed visits kept with their loads."""
-    on_weekday = np.isin(problem.dates.weekday, weekdays)[None, :] & problem.allowed
+    on_weekday = np.isin(problem.dates.day_of_week, weekdays)[None, :] & problem.allowed
     visits = on_weekday | problem.committed
     loads = np.where(problem.committed, problem.fixed_load,
                      np.where(visits, problem.limit[:, None], 0.0))

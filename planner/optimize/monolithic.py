@@ -34,6 +34,7 @@ from __future__ import annotations
 
 import math
 import re
+import warnings
 from dataclasses import dataclass
 
 import numpy as np
@@ -259,7 +260,14 @@ def build_monolithic_model(problem: PlanningProblem) -> MonolithicModel:
 def _solver(name: str, time_limit_s: float) -> pulp.LpSolver:
     if name == "highs":
         return pulp.HiGHS(msg=False, timeLimit=time_limit_s, threads=1, **_HIGHS_OPTIONS)
-    return pulp.PULP_CBC_CMD(msg=False, timeLimit=time_limit_s, gapRel=1e-9, gapAbs=1e-9)
+    options = dict(msg=False, timeLimit=time_limit_s, gapRel=1e-9, gapAbs=1e-9)
+    cbc = pulp.COIN_CMD(**options)
+    if cbc.available():
+        return cbc
+    # the CBC binary bundled with PuLP 3 is reached only through the deprecated PULP_CBC_CMD
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", DeprecationWarning)
+        return pulp.PULP_CBC_CMD(**options)
 
 
 def _status(prob: pulp.LpProblem) -> str:
