@@ -29,7 +29,7 @@ terminal) and then lowering loads while the union of dry paths stays within the 
 """
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 
@@ -61,6 +61,8 @@ class TerminalBatch:
     initial_ok: np.ndarray
     initial_cost: np.ndarray
     soft_penalty: float | None = None
+    # dry sets of cycles already asked for (they do not depend on prices)
+    dry_set_cache: dict = field(default_factory=dict, repr=False, compare=False)
 
 
 def prepare_batch(problem: PlanningProblem, allowance: np.ndarray,
@@ -502,6 +504,10 @@ def target_plans(batch: TerminalBatch, day_price: np.ndarray, rows: np.ndarray, 
 def cycle_dry_sets(batch: TerminalBatch, t: int, a: int, b: int) -> list[int]:
     """Dry sets (Python int bit sets over paths) of the candidates of cycle ``a → b``
     (``a = −1``: the start balance; one set), in candidate order."""
+    key = (t, a, b)
+    cached = batch.dry_set_cache.get(key)
+    if cached is not None:
+        return cached
     problem = batch.problem
     horizon = problem.horizon_days
     if a >= horizon:
@@ -519,7 +525,8 @@ def cycle_dry_sets(batch: TerminalBatch, t: int, a: int, b: int) -> list[int]:
         done = n
         sets.append((n, acc))
     by_count = dict(sets)
-    return [by_count[n] for n in counts]
+    batch.dry_set_cache[key] = out = [by_count[n] for n in counts]
+    return out
 
 
 def lower_loads(batch: TerminalBatch, rows: np.ndarray, plans: Plans,

@@ -42,7 +42,8 @@ from planner.optimize.network import (ColumnPool, _soft_penalty, solve_master_lp
 from planner.optimize.problem import PlanningProblem, PlanResult, result_from_plan, service_limits
 
 ENUMERATION_LIMIT = 40_000_000     # plans × paths × days costed when enumerating a terminal
-PATTERN_LIMIT = 5_000_000          # patterns × paths × days when every pattern gets its loads
+PATTERN_LIMIT = 300_000            # patterns × paths × days when every pattern gets its loads
+NEIGHBOUR_LIMIT = 20_000_000       # neighbour plans × paths × days in one local search
 CHUNK = 20_000
 STEPS = (-8, -4, -2, -1, 1, 2, 4, 8)
 
@@ -369,9 +370,11 @@ def neighbour_plans(problem: PlanningProblem, rows: np.ndarray, visits: np.ndarr
         free = np.flatnonzero(v & ~committed[i])
         open_days = np.flatnonzero(problem.allowed[rows[i]] & ~v)
         mean_day = problem.demand[rows[i]].mean(axis=0)
-        moves = [(d, None) for d in free] + [(None, d) for d in open_days]
+        moves = [(d, None) for d in free]
         moves += [(d, d + s) for d in free for s in (-1, 1)
                   if 0 <= d + s < d_count and d + s in set(open_days)]
+        if len(moves) * problem.shape[1] * d_count * rows.size <= NEIGHBOUR_LIMIT:
+            moves += [(None, d) for d in open_days]
         for drop, add in moves:
             nv, nl = v.copy(), lo.copy()
             carried = 0.0
@@ -387,13 +390,15 @@ def neighbour_plans(problem: PlanningProblem, rows: np.ndarray, visits: np.ndarr
                 need = mean_day[add:end].sum()
                 bundle = problem.bundle[rows[i]]
                 top = problem.limit[rows[i]]
-                # the new visit starts from the moved load, the mean need, and a full load
+                # a moved visit starts from its load and full, a new one from the mean need
+                # and full
+                firsts = [carried if carried else min(top, math.ceil(need / bundle) * bundle)]
+                firsts += [top] if firsts[0] != top else []
                 starts = []
-                for first in {carried, min(top, math.ceil(need / bundle) * bundle), top}:
-                    if first or not carried:
-                        start = nl.copy()
-                        start[add] = first
-                        starts.append(start)
+                for first in firsts:
+                    start = nl.copy()
+                    start[add] = first
+                    starts.append(start)
             for start in starts:
                 cand_row.append(i)
                 cand_v.append(nv)
