@@ -129,6 +129,8 @@ def test_plan_keeps_the_rules(problem):
     ledger = evaluate_plan(problem, visits, loads)
     assert result.objective == pytest.approx(ledger.expected_cost().sum(), rel=1e-9)
     assert np.allclose(result.dry_probability, ledger.dry_probability(problem.horizon_days))
+    after_visit = np.where(visits[:, None, :], ledger.balance_open, 0.0)
+    assert (after_visit <= problem.limit[:, None, None] + 1e-9).all()   # balance after a visit
     # service target: met, or (when the depot's crews cannot serve every terminal's allowance)
     # missed with a note saying why
     allowance, _ = dry_path_allowance(problem)
