@@ -200,7 +200,7 @@ def solve_depot(problem: PlanningProblem, allowance: np.ndarray, depot: int, *,
     else:      # out of time: keep the cycles already priced, price the excess dry paths
         batch = replace(batch, soft_penalty=penalty)
     rows = np.arange(t_count)
-    tight = 1e-9 if exact else gap_tolerance / 20.0
+    tight = 1e-9 if exact else gap_tolerance / 10.0
     log.append(f"{name}: {t_count} terminals, cycles priced in "
                f"{time.perf_counter() - started:.1f} s")
 

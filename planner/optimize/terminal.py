@@ -46,11 +46,10 @@ class TerminalBatch:
 
     ``prefix`` ``[T, D + 1, P]``: cumulative demand before each day (day-major, so one day's
     paths are contiguous). ``arc_ok`` ``[T, D, D + 1]``: a cycle from a visit on ``a`` to the
-    next visit on ``b`` is
-    possible (``a`` allowed, ``b`` allowed or the end, no committed visit skipped);
-    ``initial_ok`` ``[T, D + 1]`` likewise for the first visit; ``initial_cost`` is ``inf``
-    where the first visit cannot be on ``b``. ``candidates``: the levels worth considering per
-    cycle (:mod:`planner.optimize.cycles`).
+    next visit on ``b`` is possible (``a`` allowed, ``b`` allowed or the end, no committed
+    visit skipped); ``initial_ok`` ``[T, D + 1]`` likewise for the first visit;
+    ``initial_cost`` is ``inf`` where the first visit cannot be on ``b``. ``candidates``: the
+    levels worth considering per cycle (:mod:`planner.optimize.cycles`).
     """
 
     problem: PlanningProblem
