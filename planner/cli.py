@@ -16,7 +16,7 @@ import sys
 for _var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
     os.environ.setdefault(_var, "1")
 from pathlib import Path
-from typing import Callable, Optional
+from typing import Annotated, Callable, Optional
 
 import typer
 from rich.console import Console
@@ -36,6 +36,23 @@ errors = Console(stderr=True, highlight=False)
 
 SCENARIO_HELP = ("Scenario folder (scenario.toml, terminals.csv, depots.csv, dispense.csv, "
                  "optional committed.csv). Default: the bundled demo network.")
+
+ScenarioArg = Annotated[Optional[Path], typer.Argument(help=SCENARIO_HELP, show_default=False,
+                                                       metavar="SCENARIO")]
+OutOpt = typer.Option("--out", "-o", help="Run folder to write (replaced whole if it exists).")
+HorizonOpt = Annotated[Optional[int], typer.Option(
+    "--horizon", min=1, help="Horizon in days (default: the scenario's planning.horizon_days).")]
+PathsOpt = Annotated[Optional[int], typer.Option(
+    "--paths", min=1, help="Number of demand paths (default: the scenario's paths.count).")]
+SeedOpt = Annotated[Optional[int], typer.Option(
+    "--seed", help="Random seed for the demand paths (default: the scenario's paths.seed).")]
+JobsOpt = Annotated[int, typer.Option("--jobs", "-j", min=1,
+                                      help="Parallel processes for forecasting.")]
+TimeLimitOpt = Annotated[float, typer.Option("--time-limit", min=1.0,
+                                             help="Solver time limit in seconds (per plan).")]
+QuietOpt = Annotated[bool, typer.Option("--quiet", "-q", help="Print only errors.")]
+JsonOpt = Annotated[bool, typer.Option("--json", help="Print the result as JSON.")]
+DebugOpt = Annotated[bool, typer.Option("--debug", help="Show tracebacks of internal errors.")]
 
 
 def _version(value: bool) -> None:
@@ -157,10 +174,9 @@ def _cell(v) -> str:
 
 @app.command()
 def check(
-    scenario: Optional[Path] = typer.Argument(None, help=SCENARIO_HELP, show_default=False,
-                                            metavar="SCENARIO"),
-    as_json: bool = typer.Option(False, "--json", help="Print the data-quality table as JSON."),
-    debug: bool = typer.Option(False, "--debug", help="Show tracebacks of internal errors."),
+    scenario: ScenarioArg = None,
+    as_json: JsonOpt = False,
+    debug: DebugOpt = False,
 ) -> None:
     """Validate a scenario folder and print a data-quality table per terminal."""
 
@@ -187,26 +203,16 @@ def check(
 
 @app.command()
 def plan(
-    scenario: Optional[Path] = typer.Argument(None, help=SCENARIO_HELP, show_default=False,
-                                            metavar="SCENARIO"),
-    out: Path = typer.Option(Path("runs/plan"), "--out", "-o",
-                             help="Run folder to write (replaced whole if it exists)."),
-    horizon: Optional[int] = typer.Option(None, "--horizon", min=1,
-                                          help="Planning horizon in days [default: the "
-                                               "scenario's planning.horizon_days)."),
-    paths: Optional[int] = typer.Option(None, "--paths", min=1,
-                                        help="Number of demand paths (default: the scenario's "
-                                             "paths.count)."),
-    seed: Optional[int] = typer.Option(None, "--seed",
-                                       help="Random seed for the demand paths [default: the "
-                                            "scenario's paths.seed)."),
-    jobs: int = typer.Option(1, "--jobs", "-j", min=1,
-                             help="Parallel processes for forecasting."),
-    time_limit: float = typer.Option(60.0, "--time-limit", min=1.0,
-                                     help="Solver time limit in seconds."),
-    quiet: bool = typer.Option(False, "--quiet", "-q", help="Print only errors."),
-    as_json: bool = typer.Option(False, "--json", help="Print the summary as JSON."),
-    debug: bool = typer.Option(False, "--debug", help="Show tracebacks of internal errors."),
+    scenario: ScenarioArg = None,
+    out: Annotated[Path, OutOpt] = Path("runs/plan"),
+    horizon: HorizonOpt = None,
+    paths: PathsOpt = None,
+    seed: SeedOpt = None,
+    jobs: JobsOpt = 1,
+    time_limit: TimeLimitOpt = 60.0,
+    quiet: QuietOpt = False,
+    as_json: JsonOpt = False,
+    debug: DebugOpt = False,
 ) -> None:
     """Forecast demand, plan visits and loads, and write the run folder (plan.csv, orders.csv,
     summary.json)."""
@@ -235,26 +241,18 @@ def plan(
 
 @app.command()
 def forecast(
-    scenario: Optional[Path] = typer.Argument(None, help=SCENARIO_HELP, show_default=False,
-                                            metavar="SCENARIO"),
-    out: Path = typer.Option(Path("runs/forecast"), "--out", "-o",
-                             help="Run folder to write (replaced whole if it exists)."),
-    horizon: Optional[int] = typer.Option(None, "--horizon", min=1,
-                                          help="Forecast horizon in days [default: the "
-                                               "scenario's planning.horizon_days)."),
-    paths: Optional[int] = typer.Option(None, "--paths", min=1,
-                                        help="Number of demand paths (default: the scenario's "
-                                             "paths.count)."),
-    seed: Optional[int] = typer.Option(None, "--seed", help="Random seed for the demand paths "
-                                                            "(default: the scenario's "
-                                                            "paths.seed)."),
-    origins: int = typer.Option(8, "--origins", min=1,
-                                help="Weekly backtest origins used to choose each terminal's "
-                                     "model."),
-    jobs: int = typer.Option(1, "--jobs", "-j", min=1, help="Parallel processes."),
-    quiet: bool = typer.Option(False, "--quiet", "-q", help="Print only errors."),
-    as_json: bool = typer.Option(False, "--json", help="Print the accuracy table as JSON."),
-    debug: bool = typer.Option(False, "--debug", help="Show tracebacks of internal errors."),
+    scenario: ScenarioArg = None,
+    out: Annotated[Path, OutOpt] = Path("runs/forecast"),
+    horizon: HorizonOpt = None,
+    paths: PathsOpt = None,
+    seed: SeedOpt = None,
+    origins: Annotated[int, typer.Option(
+        "--origins", min=1, help="Weekly backtest origins used to choose each terminal's "
+                                 "model.")] = 8,
+    jobs: JobsOpt = 1,
+    quiet: QuietOpt = False,
+    as_json: JsonOpt = False,
+    debug: DebugOpt = False,
 ) -> None:
     """Forecast demand per terminal: accuracy by model from a rolling-origin backtest, the
     champion per terminal, and forecasts (written to the run folder)."""
@@ -281,16 +279,14 @@ def forecast(
 
 @app.command()
 def diagnose(
-    scenario: Optional[Path] = typer.Argument(None, help=SCENARIO_HELP, show_default=False,
-                                            metavar="SCENARIO"),
-    terminal: Optional[list[str]] = typer.Option(None, "--terminal", "-t",
-                                                 help="Terminal id to diagnose (repeatable) "
-                                                      "(default: all terminals)."),
-    out: Path = typer.Option(Path("runs/diagnose"), "--out", "-o",
-                             help="Run folder to write (replaced whole if it exists)."),
-    quiet: bool = typer.Option(False, "--quiet", "-q", help="Print only errors."),
-    as_json: bool = typer.Option(False, "--json", help="Print the test table as JSON."),
-    debug: bool = typer.Option(False, "--debug", help="Show tracebacks of internal errors."),
+    scenario: ScenarioArg = None,
+    terminal: Annotated[Optional[list[str]], typer.Option(
+        "--terminal", "-t", help="Terminal id to diagnose (repeatable) (default: all "
+                                 "terminals).")] = None,
+    out: Annotated[Path, OutOpt] = Path("runs/diagnose"),
+    quiet: QuietOpt = False,
+    as_json: JsonOpt = False,
+    debug: DebugOpt = False,
 ) -> None:
     """Statistical diagnostics per terminal: descriptive statistics, ADF and KPSS, ACF and
     PACF, periodogram, and residual tests (Ljung-Box, Durbin-Watson, Breusch-Godfrey) of the
@@ -313,30 +309,24 @@ def diagnose(
 
 @app.command()
 def backtest(
-    scenario: Optional[Path] = typer.Argument(None, help=SCENARIO_HELP, show_default=False,
-                                            metavar="SCENARIO"),
-    weeks: int = typer.Option(12, "--weeks", "-w", min=1,
-                              help="Weeks to replay, ending with the last day of history."),
-    past_visits: Optional[Path] = typer.Option(None, "--past-visits",
-                                               help="CSV of the visits actually made "
-                                                    "(terminal_id, date, load), replayed as "
-                                                    "one more baseline routine."),
-    out: Path = typer.Option(Path("runs/backtest"), "--out", "-o",
-                             help="Run folder to write (replaced whole if it exists)."),
-    paths: Optional[int] = typer.Option(None, "--paths", min=1,
-                                        help="Demand paths per weekly plan (default: the "
-                                             "scenario's paths.count)."),
-    seed: Optional[int] = typer.Option(None, "--seed", help="Random seed (default: the "
-                                                            "scenario's paths.seed)."),
-    origins: int = typer.Option(4, "--origins", min=1,
-                                help="Weekly origins of the model-choice backtest inside each "
-                                     "weekly plan."),
-    jobs: int = typer.Option(1, "--jobs", "-j", min=1, help="Parallel processes."),
-    time_limit: float = typer.Option(60.0, "--time-limit", min=1.0,
-                                     help="Solver time limit per weekly plan, in seconds."),
-    quiet: bool = typer.Option(False, "--quiet", "-q", help="Print only errors."),
-    as_json: bool = typer.Option(False, "--json", help="Print the policy table as JSON."),
-    debug: bool = typer.Option(False, "--debug", help="Show tracebacks of internal errors."),
+    scenario: ScenarioArg = None,
+    weeks: Annotated[int, typer.Option(
+        "--weeks", "-w", min=1, help="Weeks to replay, ending with the last day of "
+                                     "history.")] = 12,
+    past_visits: Annotated[Optional[Path], typer.Option(
+        "--past-visits", help="CSV of the visits actually made (terminal_id, date, load), "
+                              "replayed as one more baseline routine.")] = None,
+    out: Annotated[Path, OutOpt] = Path("runs/backtest"),
+    paths: PathsOpt = None,
+    seed: SeedOpt = None,
+    origins: Annotated[int, typer.Option(
+        "--origins", min=1, help="Weekly origins of the model-choice backtest inside each "
+                                 "weekly plan.")] = 4,
+    jobs: JobsOpt = 1,
+    time_limit: TimeLimitOpt = 60.0,
+    quiet: QuietOpt = False,
+    as_json: JsonOpt = False,
+    debug: DebugOpt = False,
 ) -> None:
     """Replay past weeks: each week plan with the data known then, execute 7 days against the
     recorded demand, carry the balances; compare with baseline routines and the
@@ -365,30 +355,22 @@ def backtest(
 
 @app.command()
 def compare(
-    scenario: Optional[Path] = typer.Argument(None, help=SCENARIO_HELP, show_default=False,
-                                            metavar="SCENARIO"),
-    sets: Optional[list[str]] = typer.Option(None, "--set", "-s",
-                                             help="One what-if variant as KEY=VALUE, several "
-                                                  "joined by ';' or ',' (repeat --set for more "
-                                                  "variants), e.g. costs.visit_fee=+15% or "
-                                                  "depots.Ashmere.max_visits_per_day=3."),
-    variant: Optional[list[Path]] = typer.Option(None, "--variant",
-                                                 help="TOML file of one variant (same keys as "
-                                                      "scenario.toml, plus a table per depot, depots.NAME); "
-                                                      "repeatable."),
-    out: Path = typer.Option(Path("runs/compare"), "--out", "-o",
-                             help="Run folder to write (replaced whole if it exists)."),
-    paths: Optional[int] = typer.Option(None, "--paths", min=1,
-                                        help="Demand paths (default: the scenario's "
-                                             "paths.count)."),
-    seed: Optional[int] = typer.Option(None, "--seed", help="Random seed (default: the "
-                                                            "scenario's paths.seed)."),
-    jobs: int = typer.Option(1, "--jobs", "-j", min=1, help="Parallel processes."),
-    time_limit: float = typer.Option(60.0, "--time-limit", min=1.0,
-                                     help="Solver time limit per variant, in seconds."),
-    quiet: bool = typer.Option(False, "--quiet", "-q", help="Print only errors."),
-    as_json: bool = typer.Option(False, "--json", help="Print the comparison as JSON."),
-    debug: bool = typer.Option(False, "--debug", help="Show tracebacks of internal errors."),
+    scenario: ScenarioArg = None,
+    sets: Annotated[Optional[list[str]], typer.Option(
+        "--set", "-s", help="One what-if variant as KEY=VALUE, several joined by ';' or ',' "
+                            "(repeat --set for more variants), e.g. costs.visit_fee=+15% or "
+                            "depots.Ashmere.max_visits_per_day=3.")] = None,
+    variant: Annotated[Optional[list[Path]], typer.Option(
+        "--variant", help="TOML file of one variant (same keys as scenario.toml, plus a "
+                          "table per depot, depots.NAME); repeatable.")] = None,
+    out: Annotated[Path, OutOpt] = Path("runs/compare"),
+    paths: PathsOpt = None,
+    seed: SeedOpt = None,
+    jobs: JobsOpt = 1,
+    time_limit: TimeLimitOpt = 60.0,
+    quiet: QuietOpt = False,
+    as_json: JsonOpt = False,
+    debug: DebugOpt = False,
 ) -> None:
     """Compare what-if variants (courier fees, rates, service targets, crews): each is
     re-planned on the same demand paths and priced on the same out-of-sample paths."""
