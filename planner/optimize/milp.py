@@ -10,6 +10,8 @@ and reading the solution are separate steps.
 from __future__ import annotations
 
 import math
+import os
+import sys
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -141,6 +143,36 @@ class Solution:
     row_dual: np.ndarray | None = None
 
 
+_HIGHS_GREETED = False
+
+
+def new_highs():
+    """A silent ``highspy.Highs`` object.
+
+    HiGHS prints its banner on stdout when the first object of a process is created, before
+    any option can be set; that first creation runs with stdout sent to the null device so the
+    planner's own output (and ``--json``) stays clean.
+    """
+    global _HIGHS_GREETED
+    import highspy
+
+    if _HIGHS_GREETED:
+        h = highspy.Highs()
+    else:
+        sys.stdout.flush()
+        saved, null = os.dup(1), os.open(os.devnull, os.O_WRONLY)
+        try:
+            os.dup2(null, 1)
+            h = highspy.Highs()
+        finally:
+            os.dup2(saved, 1)
+            os.close(saved)
+            os.close(null)
+        _HIGHS_GREETED = True
+    h.setOptionValue("output_flag", False)
+    return h
+
+
 def highs_available() -> bool:
     try:
         import highspy  # noqa: F401
@@ -164,8 +196,7 @@ def _solve_highspy(model: LinearModel, time_limit_s: float, mip_rel_gap: float,
     import highspy
 
     a = model.arrays()
-    h = highspy.Highs()
-    h.setOptionValue("output_flag", False)
+    h = new_highs()
     h.setOptionValue("threads", 1)
     h.setOptionValue("time_limit", float(max(time_limit_s, 0.01)))
     h.setOptionValue("mip_rel_gap", float(mip_rel_gap))
@@ -226,6 +257,7 @@ def _solve_pulp(model: LinearModel, name: str, time_limit_s: float,
 
     prob, xs = model.to_pulp()
     if name == "highs":
+        new_highs()  # PuLP's HiGHS creates its own objects: greet HiGHS quietly first
         solver = pulp.HiGHS(msg=False, timeLimit=time_limit_s, mip_rel_gap=mip_rel_gap, threads=1)
     else:
         solver = pulp.PULP_CBC_CMD(msg=False, timeLimit=time_limit_s, gapRel=mip_rel_gap)
