@@ -135,3 +135,13 @@ def test_report_and_spreadsheet_read_the_orders_the_run_wrote(tiny_run):
               if isinstance(c.value, (int, float))]
     for amount in orders.loc[orders["expected_returns"] > 0, "expected_returns"]:
         assert any(abs(v - amount) < 0.01 for v in values), amount
+
+
+def test_json_output_of_a_real_process_is_pure_json(tmp_path):
+    """Solver libraries print from C code, which CliRunner cannot see: run a real process."""
+    env = {**os.environ, "PYTHONPATH": str(REPO)}
+    done = subprocess.run([sys.executable, "-m", "planner", "plan", str(TINY), "--out",
+                           str(tmp_path / "j"), "--paths", "60", "--json"], cwd=tmp_path,
+                          env=env, capture_output=True, text=True, timeout=300)
+    assert done.returncode == 0, done.stderr
+    assert json.loads(done.stdout)["solver"]["status"] == "optimal"
