@@ -114,6 +114,7 @@ class StageProgress:
 
     LABELS = {"clean": "Cleaning history", "forecast": "Forecasting terminals",
               "optimize": "Optimizing the schedule", "evaluate": "Checking out of sample",
+              "diagnose": "Diagnosing the history",
               "report": "Writing report"}
 
     def __init__(self, enabled: bool):

@@ -31,6 +31,7 @@ class PlanOptions:
     tail_days: int = TAIL_DAYS
     origins: int = 8
     evaluate: bool = True
+    diagnose: bool = True
     report: bool = True
 
 
@@ -102,6 +103,7 @@ class PlanRun:
     summary: dict[str, Any]
     evaluation: pd.DataFrame | None = None
     out_of_sample: Any = None
+    diagnostics: dict[str, Any] | None = None
     run_folder: Path | None = None
 
     @property
@@ -206,8 +208,17 @@ def plan_scenario(source: str | Path | Scenario, *, options: PlanOptions | None 
         progress("evaluate", 1, 1)
         summary["out_of_sample"] = check.summary
         summary["routines"] = json_records(evaluation)
+    diagnostics = None
+    if options.diagnose:
+        from planner.diagnostics import diagnose_scenario
+
+        progress("diagnose", 0, 1)
+        diagnostics = diagnose_scenario(scenario, clean,
+                                        residuals_by_terminal=getattr(forecast, "residuals",
+                                                                      None))
+        progress("diagnose", 1, 1)
     return PlanRun(scenario, options, clean, forecast, problem, result, plan, orders, costs,
-                   summary, evaluation, check)
+                   summary, evaluation, check, diagnostics)
 
 
 def evaluate_plan(scenario: Scenario, clean: Any, problem: Any, result: Any,
@@ -283,6 +294,11 @@ def run_plan(source: str | Path | Scenario, out_dir: str | Path, *,
         writer.write_csv("plan.csv", _rounded(run.plan))
         writer.write_csv("orders.csv", _rounded(run.orders))
         writer.write_csv("costs.csv", _rounded(run.costs))
+        if run.diagnostics:
+            tables = [d.table().assign(terminal_id=tid)[["terminal_id", "on", "test", "statistic",
+                                                         "p_value", "verdict"]]
+                      for tid, d in run.diagnostics.items()]
+            writer.write_csv("diagnostics.csv", _rounded(pd.concat(tables, ignore_index=True)))
         if run.out_of_sample is not None:
             writer.write_csv("out_of_sample.csv", _rounded(run.out_of_sample.frame))
             writer.write_csv("routines.csv", _rounded(run.evaluation))

@@ -24,7 +24,7 @@ REPO = Path(__file__).resolve().parents[1]
 TINY = REPO / "planner" / "demo" / "tiny"
 FAST = PlanOptions(path_count=120, origins=2)
 RUN_FILES = {"plan.csv", "orders.csv", "costs.csv", "summary.json", "out_of_sample.csv",
-             "routines.csv", "report.html", "plan.xlsx"}
+             "routines.csv", "diagnostics.csv", "report.html", "plan.xlsx"}
 
 
 @pytest.fixture(scope="module")
