@@ -77,6 +77,7 @@ class DepotResult:
     soft: bool
     log: list
     rounds: int = 0
+    pool: "ColumnPool | None" = None
 
 
 # --------------------------------------------------------------------------------------------
@@ -282,7 +283,7 @@ def solve_depot(problem: PlanningProblem, allowance: np.ndarray, depot: int, *,
     if soft:
         # the soft prices are not costs: report the plan's cost and a bound without them
         objective, bound = _without_soft_prices(batch, visits, levels, objective, bound)
-    return DepotResult(visits, levels, objective, bound, state, soft, log, iteration + 1)
+    return DepotResult(visits, levels, objective, bound, state, soft, log, iteration + 1, pool)
 
 
 def _soft_retry(problem, allowance, depot, deadline, solver, gap_tolerance, exact, log, pool,
@@ -440,7 +441,7 @@ def solve_plan(problem: PlanningProblem, *, time_limit_s: float = 60.0, solver: 
         from planner.optimize.topup import solve_topup
 
         return solve_topup(problem, time_limit_s=time_limit_s, solver=solver,
-                           gap_tolerance=gap_tolerance, exact=exact)
+                           gap_tolerance=gap_tolerance, exact=exact, jobs=jobs)
     notes = [""] * t_count
     depots = [k for k in range(len(problem.depots)) if (problem.depot_of == k).any()]
     sizes = {k: int((problem.depot_of == k).sum()) for k in depots}

@@ -31,21 +31,22 @@ from __future__ import annotations
 
 import itertools
 import math
+import os
 import time
+from dataclasses import replace
 
 import numpy as np
 
 from planner.costs import simulate
 from planner.optimize import milp, terminal
-from planner.optimize.network import (ColumnPool, _soft_penalty, solve_master_lp,
-                                      solve_master_mip)  # noqa: F401
+from planner.optimize.network import (ColumnPool, _soft_penalty, solve_depot,
+                                      solve_master_lp, solve_master_mip)
 from planner.optimize.problem import PlanningProblem, PlanResult, result_from_plan, service_limits
 
 ENUMERATION_LIMIT = 40_000_000     # plans × paths × days costed when enumerating a terminal
 PATTERN_LIMIT = 300_000            # patterns × paths × days when every pattern gets its loads
 NEIGHBOUR_LIMIT = 20_000_000       # neighbour plans × paths × days in one local search
 CHUNK = 20_000
-STEPS = (-8, -4, -2, -1, 1, 2, 4, 8)
 
 
 def pattern_count(problem: PlanningProblem, t: int) -> int:
@@ -110,9 +111,11 @@ def enumerate_patterns(problem: PlanningProblem, t: int, allowance: np.ndarray,
 
 def refine_loads(problem: PlanningProblem, rows: np.ndarray, visits: np.ndarray,
                  loads: np.ndarray, allowance: np.ndarray, penalty: float,
-                 passes: int = 4) -> tuple[np.ndarray, np.ndarray]:
+                 passes: int = 4, deadline: float = math.inf) -> tuple[np.ndarray, np.ndarray]:
     """Coordinate descent on the free loads of fixed visit patterns (whole bundles within
-    ``0 … limit``), on the exact priced cost. Returns ``(loads, priced cost)``."""
+    ``0 … limit``), on the exact priced cost: per visit one bundle down and up, then on in the
+    better direction with doubling steps while the cost falls. Returns ``(loads, priced
+    cost)``."""
     loads = loads.copy()
     cost, excess = evaluate(problem, rows, visits, loads, allowance)
     priced = cost + penalty * excess
@@ -121,27 +124,47 @@ def refine_loads(problem: PlanningProblem, rows: np.ndarray, visits: np.ndarray,
     most = int(free.sum(axis=1).max(initial=0))
     bundle = problem.bundle[rows][:, None]
     limit = problem.limit[rows][:, None]
+
+    def attempt(sub: np.ndarray, at: np.ndarray, step: np.ndarray) -> np.ndarray:
+        """Try ``step`` bundles on the marked visit of rows ``sub``; keep improvements.
+        Returns which rows improved."""
+        trial = np.where(at[sub], np.clip(loads[sub] + step[:, None] * bundle[sub], 0.0,
+                                          limit[sub]), loads[sub])
+        moved = (trial != loads[sub]).any(axis=1)
+        if not moved.any():
+            return np.zeros(sub.size, bool)
+        c, e = evaluate(problem, rows[sub[moved]], visits[sub[moved]], trial[moved], allowance)
+        p = c + penalty * e
+        better = np.zeros(sub.size, bool)
+        gain = p < priced[sub[moved]] - 1e-9 * np.maximum(1.0, np.abs(priced[sub[moved]]))
+        better[np.flatnonzero(moved)[gain]] = True
+        win = sub[better]
+        loads[win] = trial[better]
+        priced[win] = p[gain]
+        return better
+
     for _ in range(passes):
         improved = False
         for j in range(most):
+            if time.perf_counter() > deadline:
+                return loads, priced
             at = free & (order == j)
-            has = at.any(axis=1)
-            if not has.any():
+            sub = np.flatnonzero(at.any(axis=1))
+            if not sub.size:
                 continue
-            for step in STEPS:
-                trial = np.where(at, np.clip(loads + step * bundle, 0.0, limit), loads)
-                changed = has & (trial != loads).any(axis=1)
-                if not changed.any():
-                    continue
-                sub = np.flatnonzero(changed)
-                c, e = evaluate(problem, rows[sub], visits[sub], trial[sub], allowance)
-                p = c + penalty * e
-                better = p < priced[sub] - 1e-9 * np.maximum(1.0, np.abs(priced[sub]))
-                if better.any():
-                    win = sub[better]
-                    loads[win] = trial[win]
-                    priced[win] = p[better]
-                    improved = True
+            down = attempt(sub, at, np.full(sub.size, -1.0))
+            rest = sub[~down]
+            up = attempt(rest, at, np.full(rest.size, 1.0)) if rest.size else np.zeros(0, bool)
+            direction = np.zeros(rows.size)
+            direction[sub[down]] = -1.0
+            direction[rest[up]] = 1.0
+            going = np.flatnonzero(direction != 0)
+            improved |= going.size > 0
+            size = 2.0
+            while going.size and size <= 8:
+                ok = attempt(going, at, direction[going] * size)
+                going = going[ok]
+                size *= 2
         if not improved:
             break
     return loads, priced
@@ -197,7 +220,8 @@ def _next_visit(visits: np.ndarray) -> np.ndarray:
 
 def order_up_to_columns(problem: PlanningProblem, batch: terminal.TerminalBatch,
                         rows: np.ndarray, price: np.ndarray, allowance: np.ndarray,
-                        penalty: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+                        penalty: float, deadline: float = math.inf
+                        ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Plans of ``rows`` at day prices ``price`` ``[n, D]``: swap pattern and levels as top-up
     loads, refined on the paths. Returns ``(visits, loads, priced cost without day prices)``."""
     relaxed, _ = terminal.relaxed_plans(batch, price, rows)
@@ -214,40 +238,67 @@ def order_up_to_columns(problem: PlanningProblem, batch: terminal.TerminalBatch,
     committed = problem.committed[rows]
     loads = np.where(committed, np.nan_to_num(problem.fixed_load[rows]), loads)
     visits = visits | committed
-    loads, priced = refine_loads(problem, rows, visits, loads, allowance, penalty)
+    loads, priced = refine_loads(problem, rows, visits, loads, allowance, penalty,
+                                 deadline=deadline)
     return visits, loads, priced
 
 
+_WORK: dict = {}
+
+
+def _depot_task(args):
+    k, budget, last = args
+    deadline = min(time.perf_counter() + budget, last)
+    problem = _WORK["problem"]
+    members = np.flatnonzero(problem.depot_of == k)
+    sub = problem.subset(members)
+    allowance, _, notes = service_limits(sub)
+    return (k, members, notes) + _solve_depot(sub, allowance, k, deadline, _WORK["solver"],
+                                             _WORK["gap"])
+
+
 def solve_topup(problem: PlanningProblem, *, time_limit_s: float = 60.0, solver: str = "highs",
-                gap_tolerance: float = 0.005, exact: bool = False) -> PlanResult:
-    """Plan a top-up network (see the module text). Never raises for unreachable targets."""
+                gap_tolerance: float = 0.005, exact: bool = False,
+                jobs: int | None = None) -> PlanResult:
+    """Plan a top-up network (see the module text). Depots run side by side in worker
+    processes like swap. Never raises for unreachable targets."""
+    from planner.optimize.network import _fork_context
+
     started = time.perf_counter()
-    deadline = started + 0.9 * time_limit_s
     t_count, _, d_count = problem.shape
+    depots = [k for k in range(len(problem.depots)) if (problem.depot_of == k).any()]
+    sizes = {k: int((problem.depot_of == k).sum()) for k in depots}
+    depots.sort(key=lambda k: -sizes[k])
+    workers = min(jobs or os.cpu_count() or 1, len(depots))
+    last = started + 0.9 * time_limit_s
+    tasks = [(k, 0.85 * time_limit_s * workers * sizes[k] / t_count, last) for k in depots]
+    _WORK.update(problem=problem, solver=solver, gap=gap_tolerance)
+    try:
+        context = _fork_context() if workers > 1 and t_count >= 20 else None
+        if context is not None:
+            with context.Pool(workers) as pool:
+                results = list(pool.imap_unordered(_depot_task, tasks))
+        else:
+            results = [_depot_task(task) for task in tasks]
+    finally:
+        _WORK.clear()
+
     visits = np.zeros((t_count, d_count), bool)
     loads = np.zeros((t_count, d_count))
     notes = [""] * t_count
     log: list[str] = []
     proven = True
     bound = 0.0
-    for k, name in enumerate(problem.depots):
-        members = np.flatnonzero(problem.depot_of == k)
-        if not members.size:
-            continue
-        sub = problem.subset(members)
-        allowance, _, depot_notes = service_limits(sub)
-        for t, note in zip(members, depot_notes):
-            notes[t] = note
-        v, lo, depot_bound, ok, depot_log, short = _solve_depot(sub, allowance, k, deadline,
-                                                                solver, gap_tolerance)
+    for k, members, depot_notes, v, lo, depot_bound, ok, depot_log, short in results:
         visits[members], loads[members] = v, lo
         bound += depot_bound
         proven &= ok
         log.extend(depot_log)
         for i, t in enumerate(members):
+            notes[t] = depot_notes[i]
             if short[i]:
-                extra = (f"crews of depot {name} cannot serve every target: dry risk traded "
-                         "for visits")
+                extra = (f"crews of depot {problem.depots[k]} cannot serve every target: dry "
+                         "risk traded for visits")
                 notes[t] = f"{notes[t]}; {extra}" if notes[t] else extra
     elapsed = time.perf_counter() - started
     result = result_from_plan(problem, visits, loads, status="optimal" if proven else "feasible",
@@ -262,6 +313,10 @@ def solve_topup(problem: PlanningProblem, *, time_limit_s: float = 60.0, solver:
 
 def _solve_depot(sub: PlanningProblem, allowance: np.ndarray, depot: int, deadline: float,
                  solver: str, gap_tolerance: float):
+    begun = time.perf_counter()
+    # the column rounds until half the time, the local search until 85 %, then the master
+    rounds_until = begun + 0.5 * (deadline - begun)
+    search_until = begun + 0.85 * (deadline - begun)
     t_count, _, d_count = sub.shape
     name = sub.depots[depot]
     crew = np.maximum(sub.crew_limit[depot], sub.committed.sum(axis=0)).astype(float)
@@ -294,28 +349,46 @@ def _solve_depot(sub: PlanningProblem, allowance: np.ndarray, depot: int, deadli
                f"pattern with searched loads, {large.size} by order-up-to levels")
     if large.size:
         part = sub.subset(large)
-        batch = terminal.prepare_batch(part, allowance[large])
-        lam = np.zeros(d_count)
         rows = np.arange(large.size)
+        # the swap model of these terminals first (fast, exact for swap): its plans, loaded as
+        # top-up amounts, are at least as safe on every path and fit the crews together
+        swap = solve_depot(replace(part, mode="swap"), allowance[large], depot,
+                           deadline=begun + 0.3 * (deadline - begun), solver=solver,
+                           gap_tolerance=gap_tolerance)
+        log.extend(f"{line} (swap start)" for line in swap.log[-1:])
+        added = _add_as_topup(pool, sub, large, swap.pool, allowance, penalty)
+        v = swap.visits | part.committed
+        lo = np.where(v, np.maximum(swap.levels, 0) * part.bundle[:, None], 0.0)
+        lo = np.where(part.committed, np.nan_to_num(part.fixed_load), lo)
+        lo, priced = refine_loads(part, rows, v, lo, allowance[large], penalty,
+                                  deadline=rounds_until)
+        added += sum(pool.add(t, v[i], _levels(sub, t, v[i], lo[i]), priced[i])
+                     for i, t in enumerate(large))
+        log.append(f"{name}: top-up from the swap plans: {added} columns")
+        batch = terminal.prepare_batch(part, allowance[large])
+        _, _, lam, _ = solve_master_lp(pool, t_count, name, crew, None, solver)
         for iteration in range(12):
+            if time.perf_counter() > rounds_until:
+                break
             price = sub.visit_fee[large] + lam[None, :]
             v, lo, priced = order_up_to_columns(part, batch, rows, price, allowance[large],
-                                                penalty)
+                                                penalty, deadline=rounds_until)
             added = 0
             for i, t in enumerate(large):
                 added += pool.add(t, v[i], _levels(sub, t, v[i], lo[i]), priced[i])
             _, _, lam, _ = solve_master_lp(pool, t_count, name, crew, None, solver)
             log.append(f"{name}: top-up round {iteration}: +{added} columns")
-            if added == 0 or time.perf_counter() > deadline:
+            if added == 0 or time.perf_counter() > rounds_until:
                 break
         # local search around each terminal's best plan at the last crew prices
         price = sub.visit_fee + lam[None, :]
         for _ in range(2):
-            if time.perf_counter() > deadline:
+            if time.perf_counter() > search_until:
                 break
             best_v, best_l, best_c = _best_columns(pool, sub, large, price)
             v, lo, priced = neighbour_plans(part, np.arange(large.size), best_v, best_l,
-                                            allowance[large], penalty, price[large])
+                                            allowance[large], penalty, price[large],
+                                            deadline=search_until)
             added = sum(pool.add(t, v[i], _levels(sub, t, v[i], lo[i]), priced[i])
                         for i, t in enumerate(large) if np.isfinite(priced[i]))
             log.append(f"{name}: top-up local search: +{added} columns")
@@ -334,6 +407,27 @@ def _solve_depot(sub: PlanningProblem, allowance: np.ndarray, depot: int, deadli
     log.append(f"{name}: master MILP {status}, priced objective {objective:,.2f}")
     proven = not large.size and not few.any() and status == "optimal"
     return visits, loads, mip_bound - priced_excess, proven, log, excess > 0
+
+
+def _add_as_topup(pool: ColumnPool, problem: PlanningProblem, members: np.ndarray,
+                  swap_pool: ColumnPool | None, allowance: np.ndarray, penalty: float) -> int:
+    """Add the plans of a swap pool (terminals numbered within ``members``) with their levels
+    as top-up loads, priced exactly. Returns how many were new."""
+    if swap_pool is None or not swap_pool.cost:
+        return 0
+    term = members[np.array(swap_pool.terminal)]
+    visits = np.array(swap_pool.visits) | problem.committed[term]
+    loads = np.where(visits, np.maximum(np.array(swap_pool.levels), 0)
+                     * problem.bundle[term][:, None], 0.0)
+    loads = np.where(problem.committed[term], np.nan_to_num(problem.fixed_load[term]), loads)
+    step = max(1, 4_000_000 // max(problem.shape[1] * problem.shape[2], 1))
+    added = 0
+    for i in range(0, term.size, step):
+        part = slice(i, i + step)
+        cost, excess = evaluate(problem, term[part], visits[part], loads[part], allowance)
+        for t, v, lo, c in zip(term[part], visits[part], loads[part], cost + penalty * excess):
+            added += pool.add(t, v, _levels(problem, t, v, lo), c)
+    return added
 
 
 def _best_columns(pool: ColumnPool, problem: PlanningProblem, terminals: np.ndarray,
@@ -357,7 +451,8 @@ def _best_columns(pool: ColumnPool, problem: PlanningProblem, terminals: np.ndar
 
 def neighbour_plans(problem: PlanningProblem, rows: np.ndarray, visits: np.ndarray,
                     loads: np.ndarray, allowance: np.ndarray, penalty: float,
-                    price: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+                    price: np.ndarray, deadline: float = math.inf
+                    ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """For each plan, the best of its neighbours (one free visit dropped, added on an allowed
     day, or moved a day), loads refined by coordinate descent; judged at day prices
     ``price`` ``[n, D]``. Returns ``(visits, loads, priced cost without day prices)``, cost
@@ -413,10 +508,12 @@ def neighbour_plans(problem: PlanningProblem, rows: np.ndarray, visits: np.ndarr
     cand_v, cand_l = np.array(cand_v), np.array(cand_l)
     step = max(1, 4_000_000 // max(problem.shape[1] * d_count, 1))
     for k in range(0, cand_row.size, step):
+        if time.perf_counter() > deadline:
+            break
         part = slice(k, k + step)
         r = cand_row[part]
         found, priced = refine_loads(problem, rows[r], cand_v[part], cand_l[part], allowance,
-                                     penalty, passes=2)
+                                     penalty, passes=2, deadline=deadline)
         judged = priced + (cand_v[part] * price[r]).sum(axis=1)
         for q in np.argsort(judged):
             i = r[q]
