@@ -1,31 +1,38 @@
 """Top-up mode: visit days and loads when cash is added to what the machine still holds.
 
 With top-up the residual stays in the machine, so a cycle's cost depends on every earlier load
-and the cycle separation of swap does not hold. What is done instead:
+and the cycle separation of swap does not hold. What is done instead, per terminal by size:
 
 - **Small terminals, exact.** When a terminal has few enough plans (every subset of its allowed
-  days × every load in whole bundles; plans × paths × days at most ``ENUMERATION_LIMIT``),
-  all of them are costed
-  with :func:`planner.costs.simulate` and each visit pattern keeps its cheapest plan. With every
-  terminal enumerated the master below sees every pattern, so the plan is optimal and the bound
-  proven.
+  days × every load in whole bundles; plans × paths × days at most ``ENUMERATION_LIMIT``), all
+  of them are costed with :func:`planner.costs.simulate` and each visit pattern keeps its
+  cheapest plan. With every terminal enumerated the master below sees every pattern, so the
+  plan is optimal and the bound proven.
 - **Fewer patterns than plans.** When the visit patterns alone are few enough (patterns ×
   paths × days at most ``PATTERN_LIMIT``), every pattern is kept, each with loads found by the
   coordinate descent below from three starts (full loads; the mean and the 95 % quantile of
   the demand until the next visit). Exact in cost, not proven optimal.
-- **Larger terminals, order-up-to levels refined on the paths.** A visit pattern and an
-  order-up-to level per visit come from the swap model at the crew prices
-  (:mod:`planner.optimize.terminal`). Loading that level as the top-up amount keeps every path
-  at least as full as the swap plan (a top-up balance is at least the load), so the service
-  target still holds; the loads are then lowered or raised bundle by bundle while the exact
-  accounting (:func:`planner.costs.simulate`) says the cost falls and the target holds
-  (coordinate descent, vectorised over terminals). Those columns are exact in cost, not in
-  optimality, and no lower bound is proven for them (nor for the patterns above): the result
-  reports bound 0 (gap 100 %) unless every terminal was enumerated.
+- **Larger terminals, order-up-to levels refined on the paths.** First the swap model of these
+  terminals is solved under the crews (:mod:`planner.optimize.network`); its plans, with each
+  swap level loaded as the top-up amount, keep every path at least as full as under swap (a
+  top-up balance is at least the load), so they meet the service target and fit the crews
+  together. Then, at the crew prices of the top-up master, new visit patterns and levels come
+  from the swap pricing (:mod:`planner.optimize.terminal`), and every plan's loads are moved
+  bundle by bundle (one down or up, then doubling steps) while the exact accounting says the
+  cost falls (coordinate descent, vectorised over terminals); last, a local search moves,
+  drops or adds single visits around each terminal's best plan. These columns are exact in
+  cost, not in optimality, and no lower bound is proven for them (nor for the patterns
+  above): the result reports bound 0 (gap 100 %) unless every terminal was enumerated.
 - **Network.** The same master as swap (one plan per terminal, crew limits per day, Lagrangian
   prices from its LP), with the service target priced rather than imposed: a dry path above
   the allowance costs more than any plan can save, so the master finds crew-feasible plans
-  even when the crews are too few, and prefers meeting every target whenever it can.
+  even when the crews are too few, and prefers meeting every target whenever it can. Depots
+  run side by side in worker processes; each stage has its share of the time limit.
+
+Measured once against the monolithic reference MILP (:mod:`planner.optimize.monolithic`) on
+30 one-terminal instances beyond enumeration (6 days, 10 paths, 11 load levels; seeds 50–79 of
+the reference tests' generator): every one at the optimum (these fall in the pattern tier);
+with the order-up-to tier forced instead: mean +0.41 %, worst +3.7 %, 6 of 30 above it.
 """
 from __future__ import annotations
 
