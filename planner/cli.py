@@ -115,6 +115,7 @@ class StageProgress:
     LABELS = {"clean": "Cleaning history", "forecast": "Forecasting terminals",
               "optimize": "Optimizing the schedule", "evaluate": "Checking out of sample",
               "diagnose": "Diagnosing the history",
+              "backtest": "Replaying past weeks", "compare": "Planning what-if variants",
               "report": "Writing report"}
 
     def __init__(self, enabled: bool):
@@ -211,18 +212,29 @@ def plan(
     seed: SeedOpt = None,
     jobs: JobsOpt = 1,
     time_limit: TimeLimitOpt = 60.0,
+    backtest_weeks: Annotated[int, typer.Option(
+        "--backtest-weeks", min=0, help="Also replay this many past weeks against the "
+                                        "baseline routines (0: no replay).")] = 0,
+    sets: Annotated[Optional[list[str]], typer.Option(
+        "--set", "-s", help="Also compare a what-if variant KEY=VALUE (repeatable; see "
+                            "'planner compare --help').")] = None,
+    variant: Annotated[Optional[list[Path]], typer.Option(
+        "--variant", help="Also compare the what-if variant of this TOML file "
+                          "(repeatable).")] = None,
     quiet: QuietOpt = False,
     as_json: JsonOpt = False,
     debug: DebugOpt = False,
 ) -> None:
     """Forecast demand, plan visits and loads, and write the run folder (plan.csv, orders.csv,
-    summary.json)."""
+    summary.json, report.html, plan.xlsx …); optionally with a replay of past weeks and
+    what-if variants, which then appear in the report too."""
 
     def action() -> None:
         from planner.pipeline import PlanOptions, run_plan
 
         options = PlanOptions(horizon_days=horizon, path_count=paths, seed=seed, jobs=jobs,
-                              time_limit_s=time_limit)
+                              time_limit_s=time_limit, backtest_weeks=backtest_weeks,
+                              what_if=tuple(sets or ()), variant_files=tuple(variant or ()))
         with StageProgress(enabled=not (quiet or as_json)) as progress:
             result = run_plan(_scenario_path(scenario), out, options=options,
                               progress=progress)

@@ -33,6 +33,9 @@ class PlanOptions:
     evaluate: bool = True
     diagnose: bool = True
     report: bool = True
+    backtest_weeks: int = 0                  # > 0: also replay that many past weeks
+    what_if: tuple[str, ...] = ()            # --set texts, one what-if variant each
+    variant_files: tuple[str | Path, ...] = ()
 
 
 @dataclass(frozen=True)
@@ -104,6 +107,8 @@ class PlanRun:
     evaluation: pd.DataFrame | None = None
     out_of_sample: Any = None
     diagnostics: dict[str, Any] | None = None
+    backtest: Any = None
+    comparison: Any = None
     run_folder: Path | None = None
 
     @property
@@ -180,6 +185,11 @@ def plan_scenario(source: str | Path | Scenario, *, options: PlanOptions | None 
     from planner.optimize import build_problem, orders_frame, plan_frame, solve_plan
 
     options = replace(options or PlanOptions(), **overrides)
+    variants = None
+    if options.what_if or options.variant_files:
+        from planner.compare import parse_variants
+
+        variants = parse_variants(options.what_if, options.variant_files)  # fail early
     scenario = source if isinstance(source, Scenario) else load_scenario(source)
     scenario = _apply_options(scenario, options)
 
@@ -217,8 +227,30 @@ def plan_scenario(source: str | Path | Scenario, *, options: PlanOptions | None 
                                         residuals_by_terminal=getattr(forecast, "residuals",
                                                                       None))
         progress("diagnose", 1, 1)
+    backtest = comparison = None
+    if options.backtest_weeks > 0:
+        from planner.evaluate.backtest import backtest_scenario
+
+        progress("backtest", 0, options.backtest_weeks)
+        week = iter(range(1, options.backtest_weeks + 1))
+        backtest = backtest_scenario(
+            source if isinstance(source, Scenario) else load_scenario(source),
+            options.backtest_weeks, options=replace(options, backtest_weeks=0, what_if=(),
+                                                    variant_files=()),
+            progress=lambda text: progress("backtest", next(week, options.backtest_weeks),
+                                           options.backtest_weeks))
+        summary["backtest"] = backtest.summary
+    if variants:
+        from planner.compare import compare_scenario
+
+        progress("compare", 0, 1)
+        comparison = compare_scenario(scenario, variants, options=options, clean=clean,
+                                      forecast=forecast,
+                                      fresh=check.demand if check is not None else None)
+        summary["what_if"] = comparison.summary
+        progress("compare", 1, 1)
     return PlanRun(scenario, options, clean, forecast, problem, result, plan, orders, costs,
-                   summary, evaluation, check, diagnostics)
+                   summary, evaluation, check, diagnostics, backtest, comparison)
 
 
 def evaluate_plan(scenario: Scenario, clean: Any, problem: Any, result: Any,
@@ -302,6 +334,14 @@ def run_plan(source: str | Path | Scenario, out_dir: str | Path, *,
         if run.out_of_sample is not None:
             writer.write_csv("out_of_sample.csv", _rounded(run.out_of_sample.frame))
             writer.write_csv("routines.csv", _rounded(run.evaluation))
+        if run.backtest is not None:
+            from planner.evaluate.backtest import write_backtest
+
+            write_backtest(writer, run.backtest)
+        if run.comparison is not None:
+            from planner.compare import write_compare
+
+            write_compare(writer, run.comparison)
         writer.write_json("summary.json", run.summary)
         if run.options.report:
             from planner.report import write_plan_xlsx, write_report

@@ -145,3 +145,17 @@ def test_json_output_of_a_real_process_is_pure_json(tmp_path):
                           env=env, capture_output=True, text=True, timeout=300)
     assert done.returncode == 0, done.stderr
     assert json.loads(done.stdout)["solver"]["status"] == "optimal"
+
+
+def test_plan_with_replay_and_what_if_adds_their_sections(tmp_path):
+    out = tmp_path / "full"
+    result = CliRunner().invoke(app, ["plan", str(TINY), "--out", str(out), "--paths", "60",
+                                      "--backtest-weeks", "2", "--set", "costs.visit_fee=+15%",
+                                      "--quiet"])
+    assert result.exit_code == 0, result.output
+    names = {p.name for p in out.iterdir()}
+    assert {"backtest.csv", "backtest.png", "compare.csv", "compare.png"} <= names
+    html = (out / "report.html").read_text()
+    assert "Backtest: replaying past weeks" in html and "What-if variants" in html
+    summary = json.loads((out / "summary.json").read_text())
+    assert "backtest" in summary and "what_if" in summary
