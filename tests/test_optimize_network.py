@@ -149,6 +149,18 @@ def test_equals_full_enumeration_of_visit_patterns(seed):
     assert result.gap <= 1e-6
 
 
+def test_fractional_master_is_closed_by_listing_plans():
+    # on this instance the master LP over the priced plans is fractional: the cheapest integer
+    # plan of those columns is 2.1 % above the optimum, and only listing every plan whose
+    # reduced cost could still help reaches the full enumeration's optimum
+    problem = tiny_problem(105, daily=800.0, days=6, horizon=5, max_dry_probability=0.2)
+    result = solve_plan(problem, exact=True)
+    check_plan(problem, result)
+    assert any("integer gap closed" in line for line in result.log)
+    assert result.objective == pytest.approx(brute_force(problem), rel=1e-7)
+    assert result.status == "optimal" and result.gap <= 1e-6
+
+
 def test_equals_full_enumeration_with_a_committed_visit_and_one_terminal():
     problem = tiny_problem(4, terminals=1, committed={(0, 2): 3000.0})
     result = solve_plan(problem, exact=True)

@@ -16,7 +16,9 @@ worker processes when there are several). Within a depot (Dantzig–Wolfe decomp
   coupled optimum for any ``λ ≥ 0``); between exact rounds, heuristic plans that meet the
   target (:func:`planner.optimize.terminal.target_plans`) generate columns quickly.
 - The master as a MILP over all columns gives the plan; ``gap = (objective − bound) /
-  objective``. When the crews cannot serve every terminal's target together, the targets of
+  objective``. In exact mode (small instances) a fractional master LP is closed too: every
+  visit pattern whose reduced cost could still lead to a cheaper integer plan gets its best
+  plan priced exactly (see :func:`_plans_within`), then the master MILP is solved again. When the crews cannot serve every terminal's target together, the targets of
   that depot become soft (an extra dry path costs more than anything else) and the notes say so.
 
 The small models (per-terminal MILPs, master LPs) go to HiGHS through ``highspy`` directly, the
@@ -24,6 +26,7 @@ master MILP through PuLP (``pulp.HiGHS``; CBC when HiGHS is not installed or ``s
 """
 from __future__ import annotations
 
+import itertools
 import math
 import os
 import time
@@ -272,9 +275,19 @@ def solve_depot(problem: PlanningProblem, allowance: np.ndarray, depot: int, *,
                    "targets become soft")
         return _soft_retry(problem, allowance, depot, deadline, solver, gap_tolerance, exact,
                            log, pool, None if converged else batch)
+    bound = best_bound if best_bound > -math.inf else -math.inf
+    if exact and converged and objective - value_lp > 1e-9 * max(abs(objective), 1.0):
+        # the LP optimum is fractional: add every plan whose reduced cost could still lead to
+        # a better integer plan, then solve the master again (proven when all could be listed)
+        listed, added = _plans_within(batch, pool, fee, mu, lam, objective - value_lp, solver)
+        log.append(f"{name}: integer gap closed by listing plans: +{added} columns"
+                   f"{'' if listed else ' (too many patterns to list them all)'}")
+        status, chosen, objective, mip_bound = solve_master_mip(
+            pool, t_count, name, crew, solver, max(deadline - time.perf_counter(), 1.0), 1e-9)
+        if listed and status == "optimal":
+            bound = max(bound, min(mip_bound, objective))
     visits = np.array([pool.visits[j] for j in chosen])
     levels = np.array([pool.levels[j] for j in chosen])
-    bound = best_bound if best_bound > -math.inf else -math.inf
     gap = (objective - bound) / max(abs(objective), 1e-12)
     state = ("optimal" if gap <= (1e-6 if exact else gap_tolerance) else
              "time_limit" if time.perf_counter() > deadline else "feasible")
@@ -284,6 +297,55 @@ def solve_depot(problem: PlanningProblem, allowance: np.ndarray, depot: int, *,
         # the soft prices are not costs: report the plan's cost and a bound without them
         objective, bound = _without_soft_prices(batch, visits, levels, objective, bound)
     return DepotResult(visits, levels, objective, bound, state, soft, log, iteration + 1, pool)
+
+
+def _plans_within(batch: terminal.TerminalBatch, pool: ColumnPool, fee: np.ndarray,
+                  mu: np.ndarray, lam: np.ndarray, threshold: float, solver: str,
+                  most_patterns: int = 4096) -> tuple[bool, int]:
+    """Add, per terminal, the best plan of every visit pattern whose reduced cost at the final
+    LP prices may be at most ``threshold``.
+
+    At convergence every plan has reduced cost ``c + λ·v − μ ≥ 0``, and an integer plan of the
+    network costs at least the LP value plus the reduced costs of its columns; so a plan that
+    could beat the incumbent has reduced cost below ``threshold = incumbent − LP``. Patterns
+    are screened by their relaxed cost (a lower bound) and priced exactly when they pass.
+    Returns ``(every pattern could be listed, columns added)``."""
+    problem = batch.problem
+    t_count, _, d_count = problem.shape
+    listed, added = True, 0
+    for t in range(t_count):
+        free = np.flatnonzero(problem.allowed[t] & ~problem.committed[t])
+        if 2 ** free.size > most_patterns:
+            listed = False
+            continue
+        price = fee[t] + lam
+        choice = np.array(list(itertools.product([False, True], repeat=free.size)),
+                          dtype=bool).reshape(-1, free.size)
+        patterns = np.tile(problem.committed[t], (len(choice), 1))
+        patterns[:, free] = choice
+        low = _pattern_lower_bounds(batch, t, patterns, price)
+        margin = 1e-9 * max(1.0, abs(threshold), abs(mu[t]))
+        for v in patterns[low - mu[t] <= threshold + margin]:
+            plan, _, status = terminal.exact_plan(batch, t, price, solver=solver,
+                                                  pattern=v, mip_rel_gap=1e-9)
+            if np.isfinite(plan.value[0]):
+                cost = plan.value[0] - lam @ plan.visits[0]
+                added += pool.add(t, plan.visits[0], plan.levels[0], cost)
+    return listed, added
+
+
+def _pattern_lower_bounds(batch: terminal.TerminalBatch, t: int, patterns: np.ndarray,
+                          price: np.ndarray) -> np.ndarray:
+    """``[n]`` relaxed cost (each cycle its cheapest candidate) of visit patterns at prices."""
+    d_count = patterns.shape[1]
+    best = batch.candidates.best_cost[t]
+    nxt = _next_visits(patterns)
+    first = np.where(patterns.any(axis=1), patterns.argmax(axis=1), d_count)
+    low = batch.initial_cost[t][first].copy()
+    for a in range(d_count):
+        on = patterns[:, a]
+        low[on] += best[a, nxt[on, a]] + price[a]
+    return low
 
 
 def _soft_retry(problem, allowance, depot, deadline, solver, gap_tolerance, exact, log, pool,

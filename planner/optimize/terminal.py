@@ -391,15 +391,27 @@ def define_dry_paths(model: milp.LinearModel, batch: TerminalBatch, t: int, frm:
 
 
 def build_arc_model(batch: TerminalBatch, t: int, day_price: np.ndarray,
-                    upper_bound: float = np.inf) -> ArcModel:
+                    upper_bound: float = np.inf, pattern: np.ndarray | None = None
+                    ) -> ArcModel:
     """The exact MILP of terminal ``t`` at day prices ``day_price`` ``[D]``.
 
     With a known plan costing ``upper_bound``, arcs that cannot lie on any cheaper plan even in
-    the relaxation (forward + arc + backward value above the bound) are left out.
+    the relaxation (forward + arc + backward value above the bound) are left out. With a visit
+    ``pattern`` ``[D]`` only its cycles remain (the loads are then what is chosen).
     """
     cand = batch.candidates
     keep = np.isfinite(cand.cost[t])
     keep_initial = np.isfinite(batch.initial_cost[t])
+    if pattern is not None:
+        d_count = pattern.size
+        days = np.flatnonzero(pattern)
+        ends = np.append(days[1:], d_count)
+        only = np.zeros(keep.shape[:2], bool)
+        only[days, ends] = True
+        keep &= only[:, :, None]
+        first = np.zeros(d_count + 1, bool)
+        first[days[0] if days.size else d_count] = True
+        keep_initial &= first
     if np.isfinite(upper_bound):
         arc = cand.best_cost[t][None]
         price = day_price[None]
@@ -434,11 +446,12 @@ def read_arc_solution(arc: ArcModel, x: np.ndarray, d_count: int
 
 def exact_plan(batch: TerminalBatch, t: int, day_price: np.ndarray, *,
                upper_bound: float = np.inf, solver: str = "highs", time_limit_s: float = 30.0,
-               mip_rel_gap: float = 1e-9) -> tuple[Plans, float, str]:
-    """Solve terminal ``t`` exactly (up to ``mip_rel_gap``). Returns ``(plan (one row), bound,
-    status)``; the plan's value is its cost at the prices (``inf`` when the model found no
-    plan cheaper than ``upper_bound``)."""
-    arc = build_arc_model(batch, t, day_price, upper_bound)
+               mip_rel_gap: float = 1e-9, pattern: np.ndarray | None = None
+               ) -> tuple[Plans, float, str]:
+    """Solve terminal ``t`` exactly (up to ``mip_rel_gap``), optionally on a fixed visit
+    ``pattern``. Returns ``(plan (one row), bound, status)``; the plan's value is its cost at
+    the prices (``inf`` when the model found no plan cheaper than ``upper_bound``)."""
+    arc = build_arc_model(batch, t, day_price, upper_bound, pattern)
     sol = milp.solve(arc.model, solver=solver, time_limit_s=time_limit_s,
                      mip_rel_gap=mip_rel_gap)
     d_count = batch.problem.demand.shape[2]
