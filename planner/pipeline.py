@@ -203,9 +203,9 @@ def plan_scenario(source: str | Path | Scenario, *, options: PlanOptions | None 
                                  progress=lambda done, total: progress("forecast", done, total))
     problem = build_problem(scenario, forecast.paths, forecast.dates,
                             tail_days=options.tail_days)
-    progress("optimize", 0, 1)
-    result = solve_plan(problem, time_limit_s=options.time_limit_s)
-    progress("optimize", 1, 1)
+    progress("optimize", 0, len(problem.terminal_ids))
+    result = solve_plan(problem, time_limit_s=options.time_limit_s,
+                        progress=lambda done, total: progress("optimize", done, total))
     plan = plan_frame(problem, result)
     orders = orders_frame(problem, result)
     costs = result.ledger.parts()

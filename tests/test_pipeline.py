@@ -159,3 +159,12 @@ def test_plan_with_replay_and_what_if_adds_their_sections(tmp_path):
     assert "Backtest: replaying past weeks" in html and "What-if variants" in html
     summary = json.loads((out / "summary.json").read_text())
     assert "backtest" in summary and "what_if" in summary
+
+
+def test_progress_reports_every_stage_up_to_its_total():
+    seen: dict[str, tuple[int, int]] = {}
+    planner.plan_scenario(TINY, path_count=40, origins=2, diagnose=False,
+                          progress=lambda stage, done, total: seen.__setitem__(stage,
+                                                                               (done, total)))
+    assert seen["forecast"] == (3, 3) and seen["optimize"] == (3, 3)
+    assert seen["clean"] == (1, 1) and seen["evaluate"] == (1, 1)

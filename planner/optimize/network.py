@@ -26,6 +26,8 @@ master MILP through PuLP (``pulp.HiGHS``; CBC when HiGHS is not installed or ``s
 """
 from __future__ import annotations
 
+from collections.abc import Callable
+
 import itertools
 import math
 import os
@@ -483,14 +485,37 @@ def _depot_task(args):
     return k, members, notes, result
 
 
+def run_depot_tasks(task: Callable, tasks: list, workers: int, t_count: int,
+                    progress: Callable[[int, int], None] | None, min_fork: int = 50) -> list:
+    """Run one task per depot (side by side in forked workers when it pays), reporting the
+    terminals done after each depot."""
+    results: list = []
+    context = _fork_context() if workers > 1 and t_count >= min_fork else None
+    if context is not None:
+        # forked workers see the problem without copying it
+        with context.Pool(workers) as pool:
+            for res in pool.imap_unordered(task, tasks):
+                results.append(res)
+                if progress is not None:
+                    progress(sum(len(r[1]) for r in results), t_count)
+    else:
+        for args in tasks:
+            results.append(task(args))
+            if progress is not None:
+                progress(sum(len(r[1]) for r in results), t_count)
+    return results
+
+
 def solve_plan(problem: PlanningProblem, *, time_limit_s: float = 60.0, solver: str = "highs",
                gap_tolerance: float = GAP_TOLERANCE, exact: bool | None = None,
-               jobs: int | None = None) -> PlanResult:
+               jobs: int | None = None,
+               progress: Callable[[int, int], None] | None = None) -> PlanResult:
     """Plan visits and loads for every terminal of ``problem`` (see the module text).
 
     ``solver``: ``"highs"`` (CBC when HiGHS is not installed) or ``"cbc"``. ``exact``: prove
     optimality to ~1e-9 instead of ``gap_tolerance`` (default: on for ≤ 20 terminals).
     ``jobs``: worker processes for the depots (default: the CPUs, at most the depots).
+    ``progress(terminals_done, terminals)`` is called as each depot's plan is ready.
     The result's objective is the simulated expected cost of the plan; never raises for an
     unreachable service target (the notes say why per terminal).
     """
@@ -503,7 +528,8 @@ def solve_plan(problem: PlanningProblem, *, time_limit_s: float = 60.0, solver: 
         from planner.optimize.topup import solve_topup
 
         return solve_topup(problem, time_limit_s=time_limit_s, solver=solver,
-                           gap_tolerance=gap_tolerance, exact=exact, jobs=jobs)
+                           gap_tolerance=gap_tolerance, exact=exact, jobs=jobs,
+                           progress=progress)
     notes = [""] * t_count
     depots = [k for k in range(len(problem.depots)) if (problem.depot_of == k).any()]
     sizes = {k: int((problem.depot_of == k).sum()) for k in depots}
@@ -513,15 +539,8 @@ def solve_plan(problem: PlanningProblem, *, time_limit_s: float = 60.0, solver: 
     # each depot gets its share of the time (the workers run depots side by side)
     last = deadline - 0.1 * time_limit_s
     tasks = [(k, 0.9 * time_limit_s * workers * sizes[k] / t_count, last) for k in depots]
-    results = []
     try:
-        context = _fork_context() if workers > 1 and t_count >= 50 else None
-        if context is not None:
-            # forked workers see the problem without copying it
-            with context.Pool(workers) as pool:
-                results = list(pool.imap_unordered(_depot_task, tasks))
-        else:
-            results = [_depot_task(task) for task in tasks]
+        results = run_depot_tasks(_depot_task, tasks, workers, t_count, progress)
     finally:
         _WORK.clear()
 

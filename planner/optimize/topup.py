@@ -36,6 +36,8 @@ with the order-up-to tier forced instead: mean +0.41 %, worst +3.7 %, 6 of 30 ab
 """
 from __future__ import annotations
 
+from collections.abc import Callable
+
 import itertools
 import math
 import os
@@ -266,10 +268,12 @@ def _depot_task(args):
 
 def solve_topup(problem: PlanningProblem, *, time_limit_s: float = 60.0, solver: str = "highs",
                 gap_tolerance: float = 0.005, exact: bool = False,
-                jobs: int | None = None) -> PlanResult:
+                jobs: int | None = None,
+                progress: Callable[[int, int], None] | None = None) -> PlanResult:
     """Plan a top-up network (see the module text). Depots run side by side in worker
-    processes like swap. Never raises for unreachable targets."""
-    from planner.optimize.network import _fork_context
+    processes like swap; ``progress(terminals_done, terminals)`` as each depot is ready.
+    Never raises for unreachable targets."""
+    from planner.optimize.network import run_depot_tasks
 
     started = time.perf_counter()
     t_count, _, d_count = problem.shape
@@ -281,12 +285,7 @@ def solve_topup(problem: PlanningProblem, *, time_limit_s: float = 60.0, solver:
     tasks = [(k, 0.85 * time_limit_s * workers * sizes[k] / t_count, last) for k in depots]
     _WORK.update(problem=problem, solver=solver, gap=gap_tolerance)
     try:
-        context = _fork_context() if workers > 1 and t_count >= 20 else None
-        if context is not None:
-            with context.Pool(workers) as pool:
-                results = list(pool.imap_unordered(_depot_task, tasks))
-        else:
-            results = [_depot_task(task) for task in tasks]
+        results = run_depot_tasks(_depot_task, tasks, workers, t_count, progress, min_fork=20)
     finally:
         _WORK.clear()
 
