@@ -6,7 +6,7 @@ evaluate → report. Each stage takes data and returns data; nothing is kept bet
 from __future__ import annotations
 
 import platform
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import Any, Callable
 

@@ -5,18 +5,8 @@ import numpy as np
 import pandas as pd
 
 from planner.optimize.problem import (WEEKDAY_NAMES, PlanningProblem, PlanResult,
-                                      target_dry_paths)
+                                      next_visits, target_dry_paths)
 
-
-def _next_visit(visits: np.ndarray) -> np.ndarray:
-    """``[T, D]`` the day of the next visit after each day (``D`` when none)."""
-    t_count, d_count = visits.shape
-    out = np.full((t_count, d_count), d_count)
-    nxt = np.full(t_count, d_count)
-    for d in range(d_count - 1, -1, -1):
-        out[:, d] = nxt
-        nxt = np.where(visits[:, d], d, nxt)
-    return out
 
 
 def plan_frame(problem: PlanningProblem, result: PlanResult) -> pd.DataFrame:
@@ -31,7 +21,7 @@ def plan_frame(problem: PlanningProblem, result: PlanResult) -> pd.DataFrame:
     horizon = problem.horizon_days
     d_count = problem.shape[2]
     target = target_dry_paths(problem) / problem.shape[1]
-    nxt = _next_visit(result.visits)
+    nxt = next_visits(result.visits)
     rows = []
     for t, d in zip(*np.nonzero(result.visits[:, :horizon])):
         end = int(nxt[t, d])

@@ -37,8 +37,8 @@ from dataclasses import dataclass, field, replace
 import numpy as np
 
 from planner.optimize import milp, terminal
-from planner.optimize.problem import (PlanningProblem, PlanResult, result_from_plan,
-                                      service_limits)
+from planner.optimize.problem import (PlanningProblem, PlanResult, next_visits,
+                                      result_from_plan, service_limits)
 
 GAP_TOLERANCE = 0.005
 MIN_ROUNDS = 4
@@ -341,7 +341,7 @@ def _pattern_lower_bounds(batch: terminal.TerminalBatch, t: int, patterns: np.nd
     """``[n]`` relaxed cost (each cycle its cheapest candidate) of visit patterns at prices."""
     d_count = patterns.shape[1]
     best = batch.candidates.best_cost[t]
-    nxt = _next_visits(patterns)
+    nxt = next_visits(patterns)
     first = np.where(patterns.any(axis=1), patterns.argmax(axis=1), d_count)
     low = batch.initial_cost[t][first].copy()
     for a in range(d_count):
@@ -381,22 +381,12 @@ def _without_soft_prices(batch, visits, levels, objective, bound):
     at least ``bound − E``; the sum of the terminals' cheapest plans ignoring crews and targets
     bounds every plan. The larger of the two is reported."""
     count = terminal.dry_counts(batch, np.arange(visits.shape[0]),
-                                terminal.Plans(visits, _next_visits(visits),
+                                terminal.Plans(visits, next_visits(visits),
                                                levels, np.zeros(visits.shape[0])))
     excess = float(np.maximum(count - batch.allowance, 0).sum() * batch.soft_penalty)
     free, _ = terminal.relaxed_plans(batch, batch.problem.visit_fee)
     return objective - excess, max(bound - excess, float(free.value.sum()))
 
-
-def _next_visits(visits: np.ndarray) -> np.ndarray:
-    """``[T, D]`` the next visit after each day (``D`` when none)."""
-    t_count, d_count = visits.shape
-    out = np.full((t_count, d_count), d_count)
-    nxt = np.full(t_count, d_count)
-    for d in range(d_count - 1, -1, -1):
-        out[:, d] = nxt
-        nxt = np.where(visits[:, d], d, nxt)
-    return out
 
 
 def _price(batch: terminal.TerminalBatch, rows: np.ndarray, price: np.ndarray, *,
@@ -473,13 +463,20 @@ def _with_excess(batch, rows, plans):
 _WORK: dict = {}
 
 
-def _depot_task(args):
+def depot_task_setup(args, work: dict):
+    """The common start of a depot task: ``(k, deadline, members, sub-problem, allowance,
+    notes)`` from ``(depot, time budget, last moment)`` and the shared work table."""
     k, budget, last = args
     deadline = min(time.perf_counter() + budget, last)
-    problem = _WORK["problem"]
+    problem = work["problem"]
     members = np.flatnonzero(problem.depot_of == k)
     sub = problem.subset(members)
     allowance, _, notes = service_limits(sub)
+    return k, deadline, members, sub, allowance, notes
+
+
+def _depot_task(args):
+    k, deadline, members, sub, allowance, notes = depot_task_setup(args, _WORK)
     result = solve_depot(sub, allowance, k, deadline=deadline, solver=_WORK["solver"],
                          gap_tolerance=_WORK["gap"], exact=_WORK["exact"])
     return k, members, notes, result

@@ -269,7 +269,7 @@ def _dry_cause(problem: PlanningProblem, t: int, visits: np.ndarray, dry: np.nda
             return (f"the start balance {problem.start_balance[t]:,.0f} runs out before the "
                     f"first possible visit on {problem.dates[first]:%a %Y-%m-%d} "
                     f"(lock days, visit days or crews), e.g. on {when}")
-        return f"no visit is possible within the horizon (visit days, lock days or crews)"
+        return "no visit is possible within the horizon (visit days, lock days or crews)"
     last = int(before[-1])
     if problem.committed[t, last]:
         return (f"the committed load {problem.fixed_load[t, last]:,.0f} on "
@@ -309,3 +309,14 @@ def relative_gap(objective: float, bound: float) -> float:
     if abs(objective) < 1e-12:
         return 0.0 if bound >= objective - 1e-9 else math.inf
     return max(0.0, (objective - bound) / abs(objective))
+
+
+def next_visits(visits: np.ndarray) -> np.ndarray:
+    """``[T, D]`` the day of the next visit after each day (``D`` when none)."""
+    t_count, d_count = visits.shape
+    out = np.full((t_count, d_count), d_count)
+    nxt = np.full(t_count, d_count)
+    for d in range(d_count - 1, -1, -1):
+        out[:, d] = nxt
+        nxt = np.where(visits[:, d], d, nxt)
+    return out

@@ -50,7 +50,7 @@ from planner.costs import simulate
 from planner.optimize import milp, terminal
 from planner.optimize.network import (ColumnPool, _soft_penalty, solve_depot,
                                       solve_master_lp, solve_master_mip)
-from planner.optimize.problem import PlanningProblem, PlanResult, result_from_plan, service_limits
+from planner.optimize.problem import PlanningProblem, PlanResult, next_visits, result_from_plan
 
 ENUMERATION_LIMIT = 40_000_000     # plans × paths × days costed when enumerating a terminal
 PATTERN_LIMIT = 300_000            # patterns × paths × days when every pattern gets its loads
@@ -191,7 +191,7 @@ def pattern_columns(problem: PlanningProblem, t: int, allowance: np.ndarray,
                         dtype=bool).reshape(-1, len(free))
     visits = np.tile(committed, (len(patterns), 1))
     visits[:, free] = patterns
-    nxt = _next_visit(visits)
+    nxt = next_visits(visits)
     prefix = np.concatenate([np.zeros((problem.shape[1], 1)),
                              np.cumsum(problem.demand[t], axis=1)], axis=1)   # [P, D + 1]
     need = prefix[:, nxt] - prefix[:, np.arange(d_count)][:, None, :]        # [P, n, D]
@@ -215,16 +215,6 @@ def pattern_columns(problem: PlanningProblem, t: int, allowance: np.ndarray,
             best_load[part] = np.where(better[:, None], found, best_load[part])
     return [(visits[i], best_load[i], float(best[i])) for i in range(len(visits))]
 
-
-def _next_visit(visits: np.ndarray) -> np.ndarray:
-    """``[n, D]`` the next visit after each day (``D`` when none)."""
-    n, d_count = visits.shape
-    out = np.full((n, d_count), d_count)
-    nxt = np.full(n, d_count)
-    for d in range(d_count - 1, -1, -1):
-        out[:, d] = nxt
-        nxt = np.where(visits[:, d], d, nxt)
-    return out
 
 
 def order_up_to_columns(problem: PlanningProblem, batch: terminal.TerminalBatch,
@@ -256,12 +246,9 @@ _WORK: dict = {}
 
 
 def _depot_task(args):
-    k, budget, last = args
-    deadline = min(time.perf_counter() + budget, last)
-    problem = _WORK["problem"]
-    members = np.flatnonzero(problem.depot_of == k)
-    sub = problem.subset(members)
-    allowance, _, notes = service_limits(sub)
+    from planner.optimize.network import depot_task_setup
+
+    k, deadline, members, sub, allowance, notes = depot_task_setup(args, _WORK)
     return (k, members, notes) + _solve_depot(sub, allowance, k, deadline, _WORK["solver"],
                                              _WORK["gap"])
 
