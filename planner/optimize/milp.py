@@ -106,7 +106,7 @@ class LinearModel:
             cat = pulp.LpInteger if a["integer"][j] else pulp.LpContinuous
             if a["integer"][j] and lo == 0 and up == 1:
                 cat = pulp.LpBinary
-            xs.append(pulp.LpVariable(_pulp_name(name), lowBound=lo, upBound=up, cat=cat))
+            xs.append(prob.add_variable(_pulp_name(name), lowBound=lo, upBound=up, cat=cat))
         prob += pulp.lpSum(float(c) * x for c, x in zip(a["cost"], xs) if c != 0) + self.offset
         terms: list[list] = [[] for _ in self.row_names]
         for j in range(len(xs)):

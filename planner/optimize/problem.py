@@ -138,7 +138,7 @@ def build_problem(scenario, paths: np.ndarray, dates, *, tail_days: int,
     dates = pd.DatetimeIndex(dates)
     if len(dates) != d_count:
         dates = pd.date_range(pd.Timestamp(dates[0]).normalize(), periods=d_count, freq="D")
-    weekday = dates.weekday.to_numpy()
+    weekday = dates.day_of_week.to_numpy()
 
     rows = terminals.loc[list(ids)]
     depots = tuple(scenario.depots.index)

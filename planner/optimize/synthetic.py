@@ -40,7 +40,7 @@ def synthetic_problem(*, terminals: int = 12, depots: int = 2, horizon_days: int
     d_count = days if days is not None else horizon_days + tail_days
     horizon = d_count - tail_days
     dates = pd.date_range(start, periods=d_count, freq="D")
-    weekday = dates.weekday.to_numpy()
+    weekday = dates.day_of_week.to_numpy()
 
     base = rng.lognormal(np.log(8000.0), 0.45, size=terminals)
     level = rng.lognormal(0.0, 0.12, size=(terminals, paths, 1))
