@@ -13,29 +13,17 @@ from __future__ import annotations
 
 import sys
 import tempfile
-from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
+from planner.forecast.stage import ForecastResult
+
 TOWNS = (("Brenholm", "BRH"), ("Falkstad", "FAL"), ("Wendmoor", "WEN"))
 SITES = ("shopping centre", "high street", "station", "village", "campus", "hospital")
 VISIT_PATTERNS = ("Mon|Tue|Wed|Thu|Fri", "Mon|Wed|Fri", "Tue|Thu|Sat", "Mon|Tue|Wed|Thu|Fri|Sat")
 MODELS = ("seasonal naive", "ETS", "SARIMAX")
-
-
-@dataclass(frozen=True)
-class SampleForecast:
-    """Shaped like ``planner.forecast.ForecastResult`` (the team brief's interface)."""
-
-    terminal_ids: tuple[str, ...]
-    dates: pd.DatetimeIndex
-    paths: np.ndarray
-    quantiles: pd.DataFrame
-    champion: pd.DataFrame
-    accuracy: pd.DataFrame
-    fallbacks: list[str] = field(default_factory=list)
 
 
 def write_sample_scenario(folder: Path, *, terminals: int = 6, seed: int = 7,
@@ -124,7 +112,7 @@ seed = {seed}
     return folder
 
 
-def sample_forecast(scenario, clean, *, days: int, path_count: int, seed: int) -> SampleForecast:
+def sample_forecast(scenario, clean, *, days: int, path_count: int, seed: int) -> ForecastResult:
     """Lognormal demand paths with AR(1) noise around each terminal's weekday means."""
     rng = np.random.default_rng(seed)
     ids = tuple(scenario.terminal_ids)
@@ -161,7 +149,7 @@ def sample_forecast(scenario, clean, *, days: int, path_count: int, seed: int) -
     accuracy = pd.DataFrame(acc, columns=["terminal_id", "model", "mase", "smape", "pinball_10",
                                           "pinball_50", "pinball_90", "coverage_80",
                                           "coverage_95"])
-    return SampleForecast(ids, dates, paths, quantiles, champion, accuracy, [])
+    return ForecastResult(ids, dates, paths, quantiles, champion, accuracy, [])
 
 
 def greedy_visits(problem) -> tuple[np.ndarray, np.ndarray]:
