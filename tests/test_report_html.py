@@ -369,3 +369,18 @@ def test_backtest_and_what_if_results_of_their_stages(small):
     wi = text[w0:text.index("</section>", w0)]
     assert "crews Sat = 0: expected cost +300 EUR" in wi and "3.8 %" in wi
     assert wi.count("data:image/svg+xml;base64,") == 1
+
+
+def test_large_networks_chart_the_terminals_at_risk_first(small, monkeypatch):
+    from planner.report import html as report_html
+
+    run = small[0] if isinstance(small, tuple) else small
+    monkeypatch.setattr(report_html, "MAX_TERMINAL_CHARTS", 2)
+    page = report_html.render_report(run)
+    assert page.count("<article class='terminal'") == 2
+    assert f"Charts for 2 of {len(run.problem.terminal_ids)} terminals" in page
+    # the charted ones have a dry risk no lower than any terminal left without a chart
+    risk = dict(zip(run.problem.terminal_ids, np.asarray(run.result.dry_probability)))
+    charted = {t for t in risk if f"alt='Demand, balance and dry risk of {t}'" in page}
+    assert len(charted) == 2
+    assert min(risk[t] for t in charted) >= max(risk[t] for t in risk if t not in charted)

@@ -149,9 +149,28 @@ class _Context:
         self.costs = run.costs
         self.slugs = _unique_slugs(self.terminal_ids, "terminal")
         self.depot_slugs = _unique_slugs(self.depots, "plan")
+        self.charted = _charted_terminals(self)
 
     def money(self, value: Any, decimals: int = 0) -> str:
         return _money(value, decimals)
+
+
+MAX_TERMINAL_CHARTS = 120   # beyond this the page grows past ~3 MB and takes minutes to draw
+
+
+def _charted_terminals(ctx: "_Context") -> set[int]:
+    """Terminals that get a chart: all of them up to :data:`MAX_TERMINAL_CHARTS`; in a larger
+    network those with a note or over the dry-risk target first, then by dry risk and by cash
+    loaded (every terminal stays in the day-by-day tables, plan.csv and plan.xlsx)."""
+    count = len(ctx.terminal_ids)
+    if count <= MAX_TERMINAL_CHARTS:
+        return set(range(count))
+    over = ctx.dry_probability > ctx.target + 1e-12
+    noted = np.array([bool(n) for n in ctx.notes])
+    loaded = ctx.loads.sum(axis=1)
+    order = sorted(range(count), key=lambda i: (not (over[i] or noted[i]),
+                                                -ctx.dry_probability[i], -loaded[i]))
+    return set(order[:MAX_TERMINAL_CHARTS])
 
 
 # ---------------------------------------------------------------------------------------------
@@ -426,8 +445,7 @@ def _terminal_section(ctx: _Context) -> Section:
     champion = getattr(run.forecast, "champion", None)
     limits = ctx.problem.limit
     costs = ctx.costs.set_index("terminal_id") if "terminal_id" in ctx.costs else None
-    order = sorted(range(len(ctx.terminal_ids)),
-                   key=lambda i: (ctx.depot_of[i], ctx.terminal_ids[i]))
+    order = sorted(ctx.charted, key=lambda i: (ctx.depot_of[i], ctx.terminal_ids[i]))
     painter = charts.TerminalChart()
     cards = []
     for i in order:
@@ -480,6 +498,11 @@ def _terminal_section(ctx: _Context) -> Section:
         "(capacity or insurance, whichever is lower). <b>Right</b>: dry risk — hatched bars "
         "show the share of demand paths dry on that day, the step line the share dry at least "
         "once so far, the dashed line the service target.")
+    if len(ctx.charted) < len(ctx.terminal_ids):
+        legend += _p(f"Charts for {len(ctx.charted)} of {len(ctx.terminal_ids)} terminals: those "
+                     "over the dry-risk target or with a note first, then by dry risk and by "
+                     "cash loaded. Every terminal's visits are in the day-by-day tables above, "
+                     "in plan.csv and in plan.xlsx.")
     return Section("terminals", "Terminals", legend + key + "".join(cards))
 
 
@@ -771,6 +794,8 @@ def _term_link(ctx: _Context, tid: str) -> str:
     try:
         i = ctx.terminal_ids.index(tid)
     except ValueError:
+        return esc(tid)
+    if i not in ctx.charted:
         return esc(tid)
     return f"<a href='#{ctx.slugs[i]}'>{esc(tid)}</a>"
 
