@@ -165,8 +165,9 @@ def _kind(name: str) -> str:
     return "baseline"
 
 
-def as_diagnostics(obj: Any) -> DiagnosticsView | None:
-    """Read diagnostics (see the module doc) into one row per terminal plus ACF charts."""
+def as_diagnostics(obj: Any, chart_ids: set[str] | None = None) -> DiagnosticsView | None:
+    """Read diagnostics (see the module doc) into one row per terminal plus ACF charts
+    (only for ``chart_ids`` when given)."""
     if obj is None:
         return None
     if isinstance(obj, DiagnosticsView):
@@ -185,6 +186,8 @@ def as_diagnostics(obj: Any) -> DiagnosticsView | None:
                 table.insert(0, "terminal_id", str(tid))
                 parts.append(table)
             corr = getattr(d, "correlogram", None)
+            if chart_ids is not None and str(tid) not in chart_ids:
+                corr = None
             if isinstance(corr, pd.DataFrame) and len(corr) and "acf" in corr:
                 n = int(getattr(d, "describe", {}).get("n", 0) or 0)
                 figures.append((f"{tid}: ACF and PACF of the cleaned demand",

@@ -72,7 +72,8 @@ def render_report(run: Any, *, evaluation: Any = None, diagnostics: Any = None,
     evaluation = as_evaluation(evaluation if evaluation is not None
                                else getattr(run, "evaluation", None))
     diagnostics = as_diagnostics(diagnostics if diagnostics is not None
-                                 else getattr(run, "diagnostics", None))
+                                 else getattr(run, "diagnostics", None),
+                                 chart_ids={ctx.terminal_ids[i] for i in ctx.charted})
     backtest = as_backtest(backtest if backtest is not None else getattr(run, "backtest", None))
     comparison = as_comparison(comparison if comparison is not None
                                else getattr(run, "comparison", None))
