@@ -338,15 +338,24 @@ def _targets(o: Override, word: str, index, what: str, example: str,
     return []
 
 
+def _row_and_column(o: Override, parts: list[str], index, what: str, example: str,
+                    problems: list[Problem]) -> tuple[list[str], str] | None:
+    """``<table>.<row>.<column>``: the rows named (``*`` for all) and the column, or None
+    after reporting a key of the wrong shape."""
+    if len(parts) != 3:
+        problems.append(Problem(o.source, f"'{o.key}' must name a {what} and a column",
+                                f"write e.g. {example}"))
+        return None
+    return _targets(o, parts[1], index, what, example, problems), parts[2]
+
+
 def _apply_depot(o: Override, parts: list[str], depots: pd.DataFrame,
                  problems: list[Problem]) -> None:
     example = "depots.<depot>.max_visits_per_day=3"
-    if len(parts) != 3:
-        problems.append(Problem(o.source, f"'{o.key}' must name a depot and a column",
-                                f"write e.g. {example}"))
+    found = _row_and_column(o, parts, depots.index, "depot", example, problems)
+    if found is None:
         return
-    names = _targets(o, parts[1], depots.index, "depot", example, problems)
-    column = parts[2]
+    names, column = found
     if column != "max_visits_per_day" and column not in WEEKDAYS:
         problems.append(_unknown(o, "depot column", column,
                                  ("max_visits_per_day",) + WEEKDAYS, example))
@@ -365,12 +374,10 @@ def _apply_depot(o: Override, parts: list[str], depots: pd.DataFrame,
 def _apply_terminal(o: Override, parts: list[str], terminals: pd.DataFrame,
                     problems: list[Problem]) -> None:
     example = "terminals.<id>.capacity=+20%"
-    if len(parts) != 3:
-        problems.append(Problem(o.source, f"'{o.key}' must name a terminal and a column",
-                                f"write e.g. {example}"))
+    found = _row_and_column(o, parts, terminals.index, "terminal", example, problems)
+    if found is None:
         return
-    ids = _targets(o, parts[1], terminals.index, "terminal", example, problems)
-    column = parts[2]
+    ids, column = found
     if column not in TERMINAL_COLUMNS:
         problems.append(_unknown(o, "terminal column", column, TERMINAL_COLUMNS, example))
         return

@@ -13,7 +13,7 @@ from planner.costs import CostRates, simulate
 from planner.optimize.network import solve_plan
 from planner.optimize.problem import (PlanningProblem, dry_path_allowance, evaluate_plan,
                                       target_dry_paths)
-from planner.optimize.synthetic import synthetic_problem
+from planner.optimize.synthetic import crew_feasible_optimum, synthetic_problem
 
 
 def tiny_problem(seed: int, *, terminals: int = 2, days: int = 5, horizon: int = 4,
@@ -93,14 +93,7 @@ def brute_force(problem: PlanningProblem) -> float:
     allowance, _ = dry_path_allowance(problem)
     per_terminal = [enumerate_terminal(problem, t, allowance[t])
                     for t in range(problem.shape[0])]
-    best = math.inf
-    for combo in itertools.product(*(table.items() for table in per_terminal)):
-        visits = np.array([pattern for pattern, _ in combo])
-        used = np.zeros_like(problem.crew_limit)
-        np.add.at(used, problem.depot_of, visits.astype(int))
-        if (used <= problem.crew_limit).all():
-            best = min(best, sum(cost for _, cost in combo))
-    return best
+    return crew_feasible_optimum(problem, per_terminal)
 
 
 def check_plan(problem: PlanningProblem, result) -> None:

@@ -22,6 +22,7 @@ from planner.costs import CostRates, simulate
 import planner.optimize as optimize
 from planner.optimize.monolithic import solve_monolithic
 from planner.optimize.problem import PlanningProblem, dry_path_allowance, evaluate_plan
+from planner.optimize.synthetic import crew_feasible_optimum
 
 REL = 1e-6          # agreement asked of the decomposition and the reference model
 
@@ -134,14 +135,7 @@ def brute_force(problem: PlanningProblem) -> float:
         for pattern, c in zip(map(tuple, visits[ok]), cost[ok]):
             best[pattern] = min(best.get(pattern, math.inf), c)
         best_by_pattern.append(best)
-    optimum = math.inf
-    for combo in itertools.product(*(b.items() for b in best_by_pattern)):
-        visits = np.array([pattern for pattern, _ in combo])
-        per_depot = np.zeros_like(problem.crew_limit)
-        np.add.at(per_depot, problem.depot_of, visits.astype(int))
-        if (per_depot <= problem.crew_limit).all():
-            optimum = min(optimum, sum(c for _, c in combo))
-    return optimum
+    return crew_feasible_optimum(problem, best_by_pattern)
 
 
 # --------------------------------------------------------------------------------------------

@@ -5,6 +5,9 @@ the days (demand paths are joint over days), rounded to whole tens. All numbers 
 """
 from __future__ import annotations
 
+import itertools
+import math
+
 import numpy as np
 import pandas as pd
 
@@ -89,3 +92,16 @@ def synthetic_problem(*, terminals: int = 12, depots: int = 2, horizon_days: int
         mode=mode,
         max_dry_probability=max_dry_probability,
     )
+
+
+def crew_feasible_optimum(problem, tables) -> float:
+    """Brute force for tests: the least total cost over one (pattern → cost) table per
+    terminal, among the combinations of patterns that keep every depot within its crews."""
+    best = math.inf
+    for combo in itertools.product(*(table.items() for table in tables)):
+        visits = np.array([pattern for pattern, _ in combo])
+        used = np.zeros_like(problem.crew_limit)
+        np.add.at(used, problem.depot_of, visits.astype(int))
+        if (used <= problem.crew_limit).all():
+            best = min(best, sum(cost for _, cost in combo))
+    return best
