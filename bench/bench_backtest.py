@@ -3,7 +3,7 @@
 Run from the repo root::
 
     python bench/bench_backtest.py [scenario folder] [--weeks 12] [--paths 200] [--jobs 2]
-                                   [--set KEY=VALUE ...]
+                                   [--tail DAYS] [--set KEY=VALUE ...]
 
 (``--set`` changes the scenario as a what-if override does, e.g. to see how much of the gap to
 the bound the service target explains: ``--set service.max_dry_probability=0.1``.)
@@ -49,6 +49,8 @@ def main(argv: list[str] | None = None) -> int:
                         help="demand paths per plan [default: the scenario's paths.count]")
     parser.add_argument("--jobs", type=int, default=1)
     parser.add_argument("--time-limit", type=float, default=60.0)
+    parser.add_argument("--tail", type=int, default=None,
+                        help="tail days planned after each horizon [default: the planner's]")
     parser.add_argument("--out", default=None, help="also write the run folder here")
     parser.add_argument("--set", action="append", default=[], dest="sets",
                         help="override a setting, e.g. service.max_dry_probability=0.1")
@@ -61,6 +63,8 @@ def main(argv: list[str] | None = None) -> int:
         scenario = apply_overrides(scenario, [parse_override(t) for t in args.sets])
         print("settings changed: " + ", ".join(args.sets))
     options = PlanOptions(path_count=args.paths, jobs=args.jobs, time_limit_s=args.time_limit)
+    if args.tail is not None:
+        options = replace(options, tail_days=args.tail)
     start = time.perf_counter()
     result = backtest_scenario(scenario, args.weeks, options=options,
                                progress=lambda text: print(f"  {text} "
