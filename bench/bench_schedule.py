@@ -4,7 +4,7 @@
     python bench/bench_schedule.py --sizes 200 --jobs 1
 
 Each network: synthetic lognormal weekday demand (``planner.optimize.synthetic``), horizon 14
-days + 7 tail days, 200 terminals per depot (5 depots for 1,000 terminals, 10 for 2,000), crews
+days + the planner's tail (28 days for a 14-day horizon), 200 terminals per depot (5 depots for 1,000 terminals, 10 for 2,000), crews
 per depot and day at ``--crew-share`` of its terminals so that the crew limits bind. For the
 first size the plan is also solved with crews ten times as many, to show what the limits cost.
 Times are wall-clock seconds of ``solve_plan`` alone (demand generation excluded).
@@ -23,6 +23,7 @@ sys.path.insert(0, os.path.join(os.path.dirname(__file__), os.pardir))
 
 from planner.optimize.network import solve_plan  # noqa: E402
 from planner.optimize.synthetic import synthetic_problem  # noqa: E402
+from planner.pipeline import PlanOptions  # noqa: E402
 
 
 def run(terminals: int, args) -> dict:
@@ -47,7 +48,9 @@ def main() -> None:
     parser.add_argument("--sizes", type=int, nargs="+", default=[1000, 2000])
     parser.add_argument("--paths", type=int, default=500)
     parser.add_argument("--horizon", type=int, default=14)
-    parser.add_argument("--tail", type=int, default=7)
+    parser.add_argument("--tail", type=int, default=None,
+                        help="days planned after the horizon [default: the planner's rule, "
+                             "planner.pipeline.PlanOptions.tail_for]")
     parser.add_argument("--crew-share", type=float, default=0.4)
     parser.add_argument("--time-limit", type=float, default=60.0)
     parser.add_argument("--jobs", type=int, default=None)
@@ -56,6 +59,8 @@ def main() -> None:
     parser.add_argument("--no-free-crews", action="store_true",
                         help="skip the comparison with crews ten times as many")
     args = parser.parse_args()
+    if args.tail is None:
+        args.tail = PlanOptions().tail_for(args.horizon)
 
     print(f"machine: {os.cpu_count()} CPU(s); jobs {args.jobs or os.cpu_count()}; "
           f"{args.paths} paths, {args.horizon} + {args.tail} days, mode {args.mode}")

@@ -540,7 +540,7 @@ def compare_scenario(scenario, variants: list[Variant], *, options=None, clean=N
         from planner.cleaning import clean_history
 
         clean = clean_history(scenario)
-    tail = int(options.tail_days)
+    tail = options.tail_for(scenario.horizon_days)
     if forecast is None:
         from planner.forecast import forecast_scenario
 

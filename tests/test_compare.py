@@ -117,7 +117,7 @@ def common(tiny):
     from planner.optimize import build_problem
     from planner.pipeline import PlanOptions
 
-    options = PlanOptions(path_count=40, origins=2, time_limit_s=30)
+    options = PlanOptions(path_count=40, origins=2, time_limit_s=30, tail_days=7)
     scenario = replace(tiny, path_count=40)
     clean = clean_history(scenario)
     forecast = forecast_scenario(scenario, clean, horizon_days=scenario.horizon_days + 7,

@@ -88,7 +88,9 @@ def test_python_api_returns_frames_and_paths(tiny_run):
     run = planner.plan_scenario(TINY, path_count=50, origins=2, evaluate=False)
     assert isinstance(run.plan, pd.DataFrame) and isinstance(run.orders, pd.DataFrame)
     assert isinstance(run.costs, pd.DataFrame) and len(run.costs) == 3
-    assert run.paths.shape == (3, 50, 14 + 7) and (run.paths >= 0).all()
+    # the horizon and the look-ahead past it (PlanOptions.tail_for: six weeks in all)
+    assert run.paths.shape == (3, 50, 14 + 28) and (run.paths >= 0).all()
+    assert run.problem.horizon_days == 14 and run.summary["tail_days"] == 28
     assert isinstance(run.forecast.quantiles, pd.DataFrame)
 
 
@@ -168,3 +170,9 @@ def test_progress_reports_every_stage_up_to_its_total():
                                                                                (done, total)))
     assert seen["forecast"] == (3, 3) and seen["optimize"] == (3, 3)
     assert seen["clean"] == (1, 1) and seen["evaluate"] == (1, 1)
+
+
+def test_the_plan_looks_six_weeks_ahead_and_at_least_a_week_past_the_horizon():
+    # DESIGN §4: plan a longer horizon and keep the first part (planner.pipeline.LOOKAHEAD_DAYS)
+    assert [PlanOptions().tail_for(h) for h in (7, 14, 21, 35, 40)] == [35, 28, 21, 7, 7]
+    assert PlanOptions(tail_days=3).tail_for(14) == 3

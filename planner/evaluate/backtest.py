@@ -270,7 +270,7 @@ def backtest_scenario(scenario, weeks: int, *, options=None,
     full_clean = clean_history(scenario)
     actual, treatment = realised_demand(full_clean, ids, dates)
     emergency_fee = float(scenario.costs.emergency_visit_fee)
-    tail = int(options.tail_days)
+    tail = options.tail_for(scenario.horizon_days)
     empty = scenario.committed.iloc[0:0]
     base = replace(scenario, committed=empty)
     start_balance = terminals["balance_now"].to_numpy(dtype=float)
