@@ -647,9 +647,10 @@ def _method_section(ctx: _Context) -> Section:
                "simulates demand paths jointly over the days. The plan chooses visit days and "
                "loads that minimise the expected cost over those paths (sample average "
                "approximation), keeping each terminal's dry risk under the service target and "
-               "each depot within its crews. The horizon is planned together with a few more "
-               "days so that the plan does not look cheap by leaving machines empty at its "
-               "end; only the horizon is shown. Amounts are in "
+               "each depot within its crews. The horizon is planned together with the "
+               f"{esc(str(s.get('tail_days', '—')))} days after it, so that the plan does not "
+               "look cheap by leaving machines empty at its end or by cutting a machine's "
+               "last cycle short; only the horizon is shown. Amounts are in "
                f"{esc(ctx.currency)}. The same seed and input give the same plan.")
             + _kv_table(rows, "method"))
     return Section("method", "How this plan was made", body)
