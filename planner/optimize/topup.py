@@ -450,8 +450,7 @@ def _exact_rounds(sub: PlanningProblem, pool: ColumnPool, small: np.ndarray,
     the new plans to ``pool``; returns the best Lagrangian bound
     ``Σ_t min_plan (cost + λ · visits) − λ · crew`` found (``−inf`` when a pricing MILP did
     not finish)."""
-    t_count, _, d_count = sub.shape
-    term, _, _ = pool.arrays()
+    t_count = sub.shape[0]
     best = -math.inf
     last = None
     for iteration in range(MAX_EXACT_ROUNDS):
