@@ -1,5 +1,7 @@
-"""Perfect-foresight bound: the Wagner–Whitin reference, brute force on small instances, and
-"no policy beats it" on random instances (optimizer plan and every baseline, path by path)."""
+"""Perfect-foresight bound: the Wagner–Whitin reference, brute force on small instances, the
+former implementation (candidate loads tried in full, vectorised over paths) on larger ones,
+and "no policy beats it" on random instances (optimizer plan and every baseline, path by
+path)."""
 from __future__ import annotations
 
 import itertools
@@ -182,3 +184,136 @@ def test_the_reference_milp_plan_never_beats_the_bound_on_any_path(mode):
         bound = perfect_foresight(problem).cost
         cost = plan_ledger(problem, visits, loads).total()
         assert (bound <= cost + 1e-9).all()
+
+
+# ---------------------------------------------------------------------------------------------
+# The former implementation (every candidate load of a cycle priced for every end, vectorised
+# over paths), kept here as the reference of the compiled dynamic programme
+# ---------------------------------------------------------------------------------------------
+
+def _former_segment(demand: np.ndarray, levels: np.ndarray, rates,
+                    return_sign: float) -> tuple[np.ndarray, np.ndarray]:
+    """Cost of a cycle starting with balance ``levels`` ``[P, K]`` on the first day of
+    ``demand`` ``[P, n]``, for every length ``m = 1 … n``: ``[P, K, n]`` (index ``m − 1``).
+
+    Carry, dry days, shortfall, and ``return_sign`` × handling on what is left at the next
+    visit (charged only when a next visit follows, i.e. not for the cycle reaching the last day;
+    the caller drops that term for ``m = n`` when the cycle ends the days planned).
+    """
+    cum = np.cumsum(demand, axis=1)[:, None, :]                    # [P, 1, n]
+    lev = levels[:, :, None]                                        # [P, K, 1]
+    left = np.maximum(lev - cum, 0.0)                               # end balance [P, K, n]
+    dry = (cum > lev) & (demand[:, None, :] > 0)
+    cost = (rates.carry_rate_daily * np.cumsum(left, axis=2)
+            + rates.dry_day_penalty * np.cumsum(dry, axis=2)
+            + rates.shortfall_penalty_per_1000 / 1000.0 * np.maximum(cum - lev, 0.0))
+    return cost, return_sign * rates.handling_per_1000 / 1000.0 * left
+
+
+def _former_candidates(cum: np.ndarray, limit: float, bundle: float, mode: str) -> np.ndarray:
+    """Loads worth trying for a cycle (``cum`` ``[P, n]`` cumulative demand): ``[P, K]``."""
+    p_count = cum.shape[0]
+    ends = np.column_stack([np.zeros(p_count), np.full(p_count, limit)])
+    if mode == "swap":
+        top = np.floor(limit / bundle + 1e-9) * bundle
+        ends[:, 1] = top
+        near = np.concatenate([np.floor(cum / bundle + 1e-9) * bundle,
+                               np.ceil(cum / bundle - 1e-9) * bundle], axis=1)
+        return np.clip(np.concatenate([ends, near], axis=1), 0.0, top)
+    return np.clip(np.concatenate([ends, cum], axis=1), 0.0, limit)
+
+
+def _former_terminal_bound(demand: np.ndarray, start: float, limit: float, bundle: float,
+                           can: np.ndarray, fixed: np.ndarray, fee: np.ndarray, rates,
+                           mode: str) -> np.ndarray:
+    """Dynamic programme for one terminal, vectorised over paths (``demand`` ``[P, D]``)."""
+    p_count, d_count = demand.shape
+    handling = rates.handling_per_1000 / 1000.0
+    # with swap what is left is handled when it returns; with top-up it saves loading it
+    sign = 1.0 if mode == "swap" else -1.0
+    must = ~np.isnan(fixed)
+    must_days = np.flatnonzero(must)
+    # what is left at the next visit is handled (swap) or saves loading (top-up); before a
+    # committed top-up visit the load is given, so nothing is saved: its handling is charged
+    # on the committed load instead, which is never more than it costs
+    credit = np.ones(d_count + 1)
+    credit[d_count] = 0.0
+    if mode != "swap":
+        credit[:d_count][must] = 0.0
+    # reach[a]: the last day a cycle starting on day a (or the start, a = -1) may end before
+    # the next visit; a committed visit must not be skipped
+    def next_must(after: int) -> int:
+        later = must_days[must_days > after]
+        return int(later[0]) if later.size else d_count
+
+    # best[:, b]: least cost of days 0 … b − 1 when a visit takes place on day b (b = D: end)
+    best = np.full((p_count, d_count + 1), np.inf)
+
+    # the start: balance `start`, no visit until day b
+    stop = next_must(-1)
+    seg, left = _former_segment(demand, np.full((p_count, 1), start), rates, sign)
+    best[:, 0] = sign * handling * start * credit[0]
+    ends = np.arange(1, stop + 1)                                   # b = 1 … stop
+    if ends.size:
+        value = seg[:, 0, ends - 1] + credit[ends] * left[:, 0, ends - 1]
+        best[:, ends] = value
+
+    for a in range(d_count):
+        if not can[a]:
+            continue
+        stop = next_must(a)
+        sub = demand[:, a:]
+        if must[a] and mode == "swap":
+            levels = np.full((p_count, 1), fixed[a])
+        else:
+            levels = _former_candidates(np.cumsum(sub, axis=1), limit, bundle, mode)
+        loaded = np.full_like(levels, fixed[a]) if must[a] else levels
+        seg, left = _former_segment(sub, levels, rates, sign)
+        ends = np.arange(a + 1, stop + 1)                           # next visit (or end) b
+        m = ends - a - 1
+        value = (seg[:, :, m] + credit[ends] * left[:, :, m]
+                 + handling * loaded[:, :, None])                  # [P, K, len(ends)]
+        pick = np.argmin(value, axis=1)                             # [P, len(ends)]
+        cycle = np.take_along_axis(value, pick[:, None, :], axis=1)[:, 0, :] + fee[a]
+        total = best[:, a][:, None] + cycle
+        better = total < best[:, ends]
+        best[:, ends] = np.where(better, total, best[:, ends])
+
+    return best[:, d_count]
+
+
+def _former_bound(problem, anyday_fee=None) -> np.ndarray:
+    t_count, _, d_count = problem.shape
+    cost = []
+    for t in range(t_count):
+        fixed = problem.fixed_load[t]
+        can = problem.allowed[t] | ~np.isnan(fixed)
+        fee = problem.visit_fee[t].astype(float)
+        if anyday_fee is not None:
+            fee = np.where(can, np.minimum(fee, anyday_fee), anyday_fee)
+            can = np.ones(d_count, bool)
+        cost.append(_former_terminal_bound(problem.demand[t], float(problem.start_balance[t]),
+                                           float(problem.limit[t]), float(problem.bundle[t]),
+                                           can, fixed, fee, problem.rates, problem.mode))
+    return np.array(cost)
+
+
+@pytest.mark.parametrize("mode", ["swap", "topup"])
+def test_bound_equals_the_former_implementation(mode):
+    rng = np.random.default_rng(23)
+    for k in range(12):
+        days = int(rng.integers(2, 43))
+        problem = random_problem(rng, terminals=3, paths=25, days=days, horizon=1, mode=mode,
+                                 committed=k % 2 == 0)
+        for fee in (None, 375.0):
+            np.testing.assert_allclose(perfect_foresight(problem, anyday_fee=fee).cost,
+                                       _former_bound(problem, anyday_fee=fee),
+                                       rtol=1e-12, atol=1e-6)
+
+
+def test_bound_over_a_long_replay_window_equals_the_former_implementation():
+    # one path over 84 days, as in a 12-week replay, with an emergency fee on any day
+    rng = np.random.default_rng(29)
+    problem = random_problem(rng, terminals=4, paths=1, days=84, horizon=84)
+    np.testing.assert_allclose(perfect_foresight(problem, anyday_fee=375.0).cost,
+                               _former_bound(problem, anyday_fee=375.0), rtol=1e-12, atol=1e-6)

@@ -14,8 +14,10 @@ separates by cycle when the load ``L`` of the visit is known (``C(a, t)`` = dema
 - the visit fee of day ``a`` and handling on ``L``.
 
 Per cycle the cost is piecewise linear in ``L`` between the cumulative demands ``C(a, t)``
-(plus a step at each of them), so its least value over whole bundles lies at a bundle multiple
-next to one of these points, at 0 or at the limit: the programme tries exactly those loads.
+(plus a step at each of them), so its least value lies at an end of one of these pieces: the
+programme tries exactly those loads (whole bundles with swap), for every end of the cycle at
+once (:func:`_terminal_bound`), so the work per terminal and path grows with the square of the
+days. It is compiled with numba.
 
 What the programme respects: the limit, whole bundles, allowed days (so lock days and days
 without crews), committed visits (kept on their day; with swap also with their load), visit fees
@@ -44,7 +46,9 @@ fee, so the bound stays below policies that call emergency visits on any day.
 """
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
+from functools import cache
 
 import numpy as np
 
@@ -96,132 +100,197 @@ def perfect_foresight_arrays(*, demand: np.ndarray, start_balance: np.ndarray,
                              mode: str, anyday_fee: float | None = None,
                              plans: bool = False) -> PerfectForesight:
     """The bound from arrays: ``demand`` ``[T, P, D]``, ``start_balance``, ``limit``,
-    ``bundle`` ``[T]``, ``allowed``, ``fixed_load`` (NaN = free), ``visit_fee`` ``[T, D]``."""
+    ``bundle`` ``[T]``, ``allowed``, ``fixed_load`` (NaN = free), ``visit_fee`` ``[T, D]``.
+
+    Compiled with numba (:func:`_terminal_bound`, on first use); the work per terminal and path grows with
+    the square of the days."""
     demand = np.asarray(demand, dtype=float)
     t_count, p_count, d_count = demand.shape
+    fixed = np.asarray(fixed_load, dtype=float).reshape(t_count, d_count)
+    can = np.asarray(allowed, bool).reshape(t_count, d_count) | ~np.isnan(fixed)
+    fee = np.broadcast_to(np.asarray(visit_fee, dtype=float), (t_count, d_count)).copy()
+    if anyday_fee is not None:
+        fee = np.where(can, np.minimum(fee, anyday_fee), anyday_fee)
+        can = np.ones((t_count, d_count), bool)
+    limit = np.broadcast_to(np.asarray(limit, dtype=float).reshape(-1), (t_count,))
+    bundle = np.broadcast_to(np.asarray(bundle, dtype=float).reshape(-1), (t_count,))
+    start = np.broadcast_to(np.asarray(start_balance, dtype=float).reshape(-1), (t_count,))
+    # swap loads are whole bundles up to the limit; top-up levels are any amount up to it
+    cap = np.floor(limit / bundle + 1e-9) * bundle if mode == "swap" else limit
     cost = np.empty((t_count, p_count))
     visits = np.zeros(demand.shape, bool) if plans else None
     loads = np.zeros(demand.shape) if plans else None
+    rows = p_count if plans else 0          # the cycles are kept only when plans are asked for
+    came_from = np.empty((rows, d_count + 1), np.int64)
+    level_at = np.empty((rows, d_count + 1))
+    h = rates.handling_per_1000 / 1000.0
+    short = rates.shortfall_penalty_per_1000 / 1000.0
+    kernel = _compiled()
     for t in range(t_count):
-        fixed = np.asarray(fixed_load[t], dtype=float)
-        can = np.asarray(allowed[t], bool) | ~np.isnan(fixed)
-        fee = np.asarray(visit_fee[t], dtype=float).copy()
-        if anyday_fee is not None:
-            fee = np.where(can, np.minimum(fee, anyday_fee), anyday_fee)
-            can = np.ones(d_count, bool)
-        out = _terminal_bound(demand[t], float(start_balance[t]), float(limit[t]),
-                              float(bundle[t]), can, fixed, fee, rates, mode, plans)
-        cost[t] = out[0]
+        kernel(demand[t], float(start[t]), float(cap[t]), float(bundle[t]), can[t], fixed[t],
+               fee[t], h, float(rates.carry_rate_daily), float(rates.dry_day_penalty), short,
+               mode == "swap", plans, cost[t], came_from, level_at)
         if plans:
-            visits[t], loads[t] = out[1], out[2]
+            _walk_back(came_from, level_at, visits[t], loads[t])
     return PerfectForesight(cost=cost, exact=mode == "swap", visits=visits, loads=loads)
 
 
-def _segment(demand: np.ndarray, levels: np.ndarray, rates: CostRates,
-             return_sign: float) -> np.ndarray:
-    """Cost of a cycle starting with balance ``levels`` ``[P, K]`` on the first day of
-    ``demand`` ``[P, n]``, for every length ``m = 1 … n``: ``[P, K, n]`` (index ``m − 1``).
+@cache
+def _compiled():
+    """:func:`_terminal_bound` compiled by numba (on first use; the machine code is cached on
+    disk, so later processes load it)."""
+    from numba import njit
 
-    Carry, dry days, shortfall, and ``return_sign`` × handling on what is left at the next
-    visit (charged only when a next visit follows, i.e. not for the cycle reaching the last day;
-    the caller drops that term for ``m = n`` when the cycle ends the days planned).
+    return njit(cache=True)(_terminal_bound)
+
+
+def _terminal_bound(demand, start, cap, bundle, can, fixed, fee, h, carry, dry_cost, short,
+                    swap, plans, out, came_from, level_at):
+    """The dynamic programme of one terminal, path by path (``demand`` ``[P, D]``); writes the
+    least cost per path into ``out`` and, with ``plans``, the cycles into ``came_from`` /
+    ``level_at`` ``[P, D + 1]`` (see :func:`_walk_back`).
+
+    ``best[b]`` is the least cost of days ``0 … b − 1`` when a visit takes place on day ``b``
+    (``b = D``: the end). A cycle starts with level ``L`` on day ``a`` (a visit, or the start
+    balance for the cycle before the first visit) and lasts ``m`` days. With the cumulative
+    demand ``c_k`` of its days (non-decreasing), the days ``k`` with ``c_k ≤ L`` are a prefix
+    of ``j(L)`` days: the machine holds cash on those days and is empty afterwards. So with
+    ``S_j = c_0 + … + c_{j−1}`` and ``N_j`` the days with demand among the first ``j``:
+
+    - covered (``L ≥ c_{m−1}``): cost = fee + handling on the load + carry · (m·L − S_m)
+      ± handling on the ``L − c_{m−1}`` left at the next visit;
+    - run dry (``L < c_{m−1}``): cost = ``G(L) + H(m)`` with ``G(L)`` = fee + handling on the
+      load + carry · (j·L − S_j) − shortfall · L − dry · N_j and ``H(m)`` = dry · N_m +
+      shortfall · c_{m−1}, so the best ``L`` for every ``m`` is a running minimum of ``G``
+      over the groups ``j = 0, 1, …, m − 1``.
+
+    Within a group (``c_{j−1} ≤ L < c_j``) and in the covered case the cost is linear in
+    ``L``, so only the ends of each interval of allowed levels are tried: whole bundles up to
+    ``cap`` with swap, any amount up to ``cap`` with top-up. The work per path is
+    proportional to ``D²`` (cycle starts × ends).
     """
-    cum = np.cumsum(demand, axis=1)[:, None, :]                    # [P, 1, n]
-    lev = levels[:, :, None]                                        # [P, K, 1]
-    left = np.maximum(lev - cum, 0.0)                               # end balance [P, K, n]
-    dry = (cum > lev) & (demand[:, None, :] > 0)
-    cost = (rates.carry_rate_daily * np.cumsum(left, axis=2)
-            + rates.dry_day_penalty * np.cumsum(dry, axis=2)
-            + rates.shortfall_penalty_per_1000 / 1000.0 * np.maximum(cum - lev, 0.0))
-    return cost, return_sign * rates.handling_per_1000 / 1000.0 * left
-
-
-def _candidates(cum: np.ndarray, limit: float, bundle: float, mode: str) -> np.ndarray:
-    """Loads worth trying for a cycle (``cum`` ``[P, n]`` cumulative demand): ``[P, K]``."""
-    p_count = cum.shape[0]
-    ends = np.column_stack([np.zeros(p_count), np.full(p_count, limit)])
-    if mode == "swap":
-        top = np.floor(limit / bundle + 1e-9) * bundle
-        ends[:, 1] = top
-        near = np.concatenate([np.floor(cum / bundle + 1e-9) * bundle,
-                               np.ceil(cum / bundle - 1e-9) * bundle], axis=1)
-        return np.clip(np.concatenate([ends, near], axis=1), 0.0, top)
-    return np.clip(np.concatenate([ends, cum], axis=1), 0.0, limit)
-
-
-def _terminal_bound(demand: np.ndarray, start: float, limit: float, bundle: float,
-                    can: np.ndarray, fixed: np.ndarray, fee: np.ndarray, rates: CostRates,
-                    mode: str, plans: bool):
-    """Dynamic programme for one terminal, vectorised over paths (``demand`` ``[P, D]``)."""
     p_count, d_count = demand.shape
-    handling = rates.handling_per_1000 / 1000.0
-    # with swap what is left is handled when it returns; with top-up it saves loading it
-    sign = 1.0 if mode == "swap" else -1.0
-    must = ~np.isnan(fixed)
-    must_days = np.flatnonzero(must)
-    # what is left at the next visit is handled (swap) or saves loading (top-up); before a
-    # committed top-up visit the load is given, so nothing is saved: its handling is charged
-    # on the committed load instead, which is never more than it costs
+    # what is left at the next visit is handled when it returns (swap) or saves loading it
+    # (top-up); before a committed top-up visit the load is given, so nothing is saved: its
+    # handling is charged on the committed load instead, which is never more than it costs
+    sign = 1.0 if swap else -1.0
     credit = np.ones(d_count + 1)
     credit[d_count] = 0.0
-    if mode != "swap":
-        credit[:d_count][must] = 0.0
-    # reach[a]: the last day a cycle starting on day a (or the start, a = -1) may end before
-    # the next visit; a committed visit must not be skipped
-    def next_must(after: int) -> int:
-        later = must_days[must_days > after]
-        return int(later[0]) if later.size else d_count
-
-    # best[:, b]: least cost of days 0 … b − 1 when a visit takes place on day b (b = D: end)
-    best = np.full((p_count, d_count + 1), np.inf)
-    came_from = np.full((p_count, d_count + 1), -2, dtype=int)     # -1: from the start
-    level_at = np.zeros((p_count, d_count + 1))                    # load of the cycle ending at b
-
-    # the start: balance `start`, no visit until day b
-    stop = next_must(-1)
-    seg, left = _segment(demand, np.full((p_count, 1), start), rates, sign)
-    best[:, 0] = sign * handling * start * credit[0]
-    came_from[:, 0] = -1
-    ends = np.arange(1, stop + 1)                                   # b = 1 … stop
-    if ends.size:
-        value = seg[:, 0, ends - 1] + credit[ends] * left[:, 0, ends - 1]
-        best[:, ends] = value
-        came_from[:, ends] = -1
-
-    for a in range(d_count):
-        if not can[a]:
-            continue
-        stop = next_must(a)
-        sub = demand[:, a:]
-        if must[a] and mode == "swap":
-            levels = np.full((p_count, 1), fixed[a])
-        else:
-            levels = _candidates(np.cumsum(sub, axis=1), limit, bundle, mode)
-        loaded = np.full_like(levels, fixed[a]) if must[a] else levels
-        seg, left = _segment(sub, levels, rates, sign)
-        ends = np.arange(a + 1, stop + 1)                           # next visit (or end) b
-        m = ends - a - 1
-        value = (seg[:, :, m] + credit[ends] * left[:, :, m]
-                 + handling * loaded[:, :, None])                  # [P, K, len(ends)]
-        pick = np.argmin(value, axis=1)                             # [P, len(ends)]
-        cycle = np.take_along_axis(value, pick[:, None, :], axis=1)[:, 0, :] + fee[a]
-        total = best[:, a][:, None] + cycle
-        better = total < best[:, ends]
-        best[:, ends] = np.where(better, total, best[:, ends])
-        came_from[:, ends] = np.where(better, a, came_from[:, ends])
-        chosen = np.take_along_axis(levels, pick, axis=1)
-        level_at[:, ends] = np.where(better, chosen, level_at[:, ends])
-
-    if not plans:
-        return best[:, d_count], None, None
-    visits = np.zeros((p_count, d_count), bool)
-    loads = np.zeros((p_count, d_count))
-    # walking back the cycles is per path; only asked for in checks and explanations
+    first_must = np.full(d_count + 1, d_count)      # the first committed day ≥ k
+    for k in range(d_count - 1, -1, -1):
+        committed = not math.isnan(fixed[k])
+        if committed and not swap:
+            credit[k] = 0.0
+        first_must[k] = k if committed else first_must[k + 1]
+    best = np.empty(d_count + 1)
+    came = np.empty(d_count + 1, np.int64)
+    level = np.empty(d_count + 1)
     for p in range(p_count):
+        d = demand[p]
+        best[:] = np.inf
+        best[0] = sign * h * start * credit[0]          # a visit on day 0 returns the start
+        came[:] = -2
+        came[0] = -1
+        level[:] = 0.0
+        for a in range(-1, d_count):
+            if a >= 0 and (not can[a] or best[a] == np.inf):
+                continue
+            a0 = 0 if a < 0 else a
+            reach = first_must[a0 + 1] if a >= 0 else first_must[0]
+            if a < 0:                                   # the start balance: no visit, no fee
+                fixed_level, lv, const, on_load, base, top = True, start, 0.0, 0.0, 0.0, np.inf
+            elif not math.isnan(fixed[a]):
+                # a committed visit pays handling on its committed load; with swap the level
+                # is that load, with top-up it is free (the relaxation of the module text)
+                fixed_level = swap
+                lv = fixed[a]
+                const = fee[a] + h * fixed[a]
+                on_load = 0.0
+                base = best[a]
+                top = np.inf if swap else cap
+            else:
+                fixed_level, lv, const, on_load, base, top = False, 0.0, fee[a], h, best[a], cap
+            run_min = np.inf
+            run_level = 0.0
+            c_prev = 0.0
+            s = 0.0                                     # S_k
+            wet = 0.0                                   # N_k
+            for k in range(reach - a0):
+                ck = c_prev + d[a0 + k]
+                # the group of k covered days: L in [c_prev, ck)
+                if ck > c_prev:
+                    slope = on_load + carry * k - short
+                    g0 = const - carry * s - dry_cost * wet
+                    if fixed_level:
+                        lo = lv
+                        hi = lv
+                    elif swap:
+                        # the least whole bundles ≥ c_prev, the greatest < ck
+                        lo = math.ceil(c_prev / bundle - 1e-9) * bundle
+                        if lo < c_prev:
+                            lo += bundle
+                        hi = math.ceil(ck / bundle - 1e-9) * bundle
+                        if hi < ck:
+                            hi += bundle
+                        hi = min(hi - bundle, top)
+                    else:
+                        lo = c_prev
+                        hi = top
+                    if lo >= c_prev and lo < ck and lo <= top and lo >= 0.0:
+                        g = g0 + slope * lo
+                        if g < run_min:
+                            run_min = g
+                            run_level = lo
+                    if hi >= c_prev and hi < ck and hi <= top and hi >= 0.0:
+                        g = g0 + slope * hi
+                        if g < run_min:
+                            run_min = g
+                            run_level = hi
+                s += ck
+                if d[a0 + k] > 0.0:
+                    wet += 1.0
+                b = a0 + k + 1
+                cycle = run_min + dry_cost * wet + short * ck
+                chosen = run_level
+                # covered: the least and the greatest level that covers the k + 1 days
+                back = sign * h * credit[b]
+                slope = on_load + carry * (k + 1) + back
+                lin = const - carry * s - back * ck
+                if fixed_level:
+                    l1 = lv
+                elif swap:
+                    l1 = math.ceil(ck / bundle - 1e-9) * bundle
+                    if l1 < ck:
+                        l1 += bundle
+                else:
+                    l1 = ck
+                l2 = lv if fixed_level else top
+                if l1 >= ck and l1 <= top and lin + slope * l1 < cycle:
+                    cycle = lin + slope * l1
+                    chosen = l1
+                if l2 >= ck and l2 <= top and lin + slope * l2 < cycle:
+                    cycle = lin + slope * l2
+                    chosen = l2
+                total = base + cycle
+                if total < best[b]:
+                    best[b] = total
+                    came[b] = a
+                    level[b] = chosen
+                c_prev = ck
+        out[p] = best[d_count]
+        if plans:
+            came_from[p] = came
+            level_at[p] = level
+
+
+def _walk_back(came_from: np.ndarray, level_at: np.ndarray, visits: np.ndarray,
+               loads: np.ndarray) -> None:
+    """Visits and loads ``[P, D]`` of the cycles that reach the bound on each path."""
+    d_count = visits.shape[1]
+    for p in range(visits.shape[0]):
         b = d_count
         while b > 0 and came_from[p, b] >= 0:
             a = int(came_from[p, b])
             visits[p, a] = True
             loads[p, a] = level_at[p, b]
             b = a
-    return best[:, d_count], visits, loads
