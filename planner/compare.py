@@ -512,7 +512,8 @@ def compare_scenario(scenario, variants: list[Variant], *, options=None, clean=N
     :class:`planner.forecast.ForecastResult` with horizon + tail days) and ``fresh``
     (out-of-sample paths ``[T, P, D]``) may be passed to reuse them; by default the history is
     cleaned, forecast with the scenario's seed (the paths of ``planner plan``) and fresh paths
-    drawn with :func:`planner.evaluate.simulate.fresh_seed`.
+    drawn from that forecast's fitted models (no refit) with
+    :func:`planner.evaluate.simulate.fresh_seed`.
 
     The CLI (``planner compare SCENARIO --set KEY=VALUE … --variant FILE.toml …``) builds the
     variants with :func:`parse_variants`, prints ``result.table`` (variant, changes, expected
@@ -521,7 +522,7 @@ def compare_scenario(scenario, variants: list[Variant], *, options=None, clean=N
     Raises :class:`~planner.errors.InputError` for bad overrides (before any forecasting).
     """
     from planner.evaluate.backtest import with_options
-    from planner.evaluate.simulate import fresh_paths, fresh_seed, plan_ledger
+    from planner.evaluate.simulate import fresh_seed, plan_ledger
     from planner.optimize import build_problem, solve_plan
     from planner.pipeline import PlanOptions
 
@@ -536,7 +537,7 @@ def compare_scenario(scenario, variants: list[Variant], *, options=None, clean=N
         scenarios[v.name] = apply_overrides(scenario, v.overrides)
         labels[v.name] = ", ".join(str(o) for o in v.overrides)
 
-    if clean is None and (forecast is None or fresh is None):
+    if clean is None and forecast is None:
         from planner.cleaning import clean_history
 
         clean = clean_history(scenario)
@@ -554,8 +555,9 @@ def compare_scenario(scenario, variants: list[Variant], *, options=None, clean=N
     fresh_seed_used = None
     if fresh is None:
         fresh_seed_used = fresh_seed(scenario.seed)
-        fresh = fresh_paths(scenario, clean, base_problem, seed=fresh_seed_used,
-                            jobs=options.jobs, origins=options.origins)
+        # drawn from the base forecast's fitted models: nothing is fitted again
+        fresh = forecast.draw_paths(fresh_seed_used, base_problem.shape[1],
+                                    len(base_problem.dates))
 
     results = {name: solve_plan(p, time_limit_s=options.time_limit_s)
                for name, p in problems.items()}

@@ -178,3 +178,65 @@ def test_short_history_falls_back_and_says_so(tiny):
     assert (res.champion["model"] == "network_profile").all()
     assert any("too few for any model" in text for text in res.fallbacks)
     assert np.all(res.paths >= 0)
+
+
+# ----------------------------------------------------------------------------- fitted models
+
+
+def test_draw_paths_equals_the_stage_for_the_same_seed(tiny, result):
+    """The result keeps its fitted champions: drawing with seed s gives exactly the paths the
+    stage draws with seed s — also for other counts, longer and shorter horizons, a gap before
+    the first planning day, a terminal without history, and from a parallel run."""
+    scenario, clean = tiny
+    other = forecast_scenario(scenario, clean, horizon_days=14, path_count=50, seed=99, jobs=2)
+    np.testing.assert_array_equal(other.draw_paths(11, 200, 14), result.paths)
+    np.testing.assert_array_equal(result.draw_paths(11, 200), result.paths)
+    for days, count in ((21, 30), (5, 70)):
+        stage = forecast_scenario(scenario, clean, horizon_days=days, path_count=count, seed=4)
+        np.testing.assert_array_equal(result.draw_paths(4, count, days), stage.paths)
+    later = replace(scenario, start_date=scenario.start_date + pd.Timedelta(days=5))
+    late = forecast_scenario(later, clean, horizon_days=14, path_count=40, seed=8)
+    np.testing.assert_array_equal(late.draw_paths(8, 40, 28),
+                                  forecast_scenario(later, clean, horizon_days=28,
+                                                    path_count=40, seed=8).paths)
+    dispense = scenario.dispense[scenario.dispense["terminal_id"] != "BRH-002"]
+    newcomer = replace(scenario, dispense=dispense.reset_index(drop=True))
+    new_clean = clean_history(newcomer)
+    res = forecast_scenario(newcomer, new_clean, horizon_days=14, path_count=20, seed=2)
+    np.testing.assert_array_equal(
+        res.draw_paths(3, 25, 14),
+        forecast_scenario(newcomer, new_clean, horizon_days=14, path_count=25, seed=3).paths)
+    # seeds are per terminal position: one terminal's paths do not depend on the others
+    alone = replace(scenario, terminals=scenario.terminals.iloc[:1])
+    np.testing.assert_array_equal(
+        forecast_scenario(alone, clean, horizon_days=14, path_count=200, seed=11).paths[0],
+        result.paths[0])
+
+
+def test_fresh_paths_draw_from_the_fit_of_the_run_without_refitting(tiny, monkeypatch):
+    """After the stage ran on a cleaned history, the out-of-sample paths come from its fitted
+    models: no terminal is fitted again, and the paths are those of a stage run with the
+    fresh seed."""
+    import planner.forecast.stage as stage
+    from planner.evaluate.simulate import fresh_paths, fresh_seed
+    from planner.optimize import build_problem
+
+    scenario, _ = tiny
+    clean = clean_history(scenario)          # an object of this test only
+    forecast = forecast_scenario(scenario, clean, horizon_days=21, path_count=30,
+                                 seed=scenario.seed, origins=2)
+    problem = build_problem(scenario, forecast.paths, forecast.dates, tail_days=7)
+    calls = []
+    real = stage.forecast_terminal
+    monkeypatch.setattr(stage, "forecast_terminal", lambda task: calls.append(task) or real(task))
+    s = fresh_seed(scenario.seed)
+    fresh = fresh_paths(scenario, clean, problem, seed=s, path_count=45, origins=2)
+    assert calls == []
+    np.testing.assert_array_equal(fresh, forecast.draw_paths(s, 45, 21))
+    # another history object (or other origins) is another fit: then the stage runs once
+    fresh_paths(scenario, clean, problem, seed=s, path_count=45, origins=3)
+    assert len(calls) == 3
+    np.testing.assert_array_equal(
+        fresh_paths(scenario, clean_history(scenario), problem, seed=s, path_count=45,
+                    origins=2), fresh)
+    assert len(calls) == 6

@@ -106,22 +106,26 @@ def check_plan(problem, visits: np.ndarray, loads: np.ndarray, demand: np.ndarra
 
 def fresh_paths(scenario, clean, problem, *, seed: int, path_count: int | None = None,
                 jobs: int = 1, origins: int = 8) -> np.ndarray:
-    """Fresh demand paths ``[T, P, D]`` for the problem's terminals and days, drawn by
-    :func:`planner.forecast.forecast_scenario` with ``seed`` (pass :func:`fresh_seed`)."""
-    from planner.forecast import forecast_scenario
+    """Fresh demand paths ``[T, P, D]`` for the problem's terminals and days, drawn with
+    ``seed`` (pass :func:`fresh_seed`) from the forecasting stage's fitted models
+    (:func:`planner.forecast.fitted_forecast`: the fit of this run when the stage already ran
+    on ``clean``, nothing is fitted again) — the paths ``forecast_scenario`` would draw with
+    that seed."""
+    from planner.forecast import fitted_forecast
 
     days = len(problem.dates)
-    forecast = forecast_scenario(scenario, clean, horizon_days=days,
-                                 path_count=int(path_count or problem.shape[1]), seed=int(seed),
-                                 jobs=jobs, origins=origins)
-    return _align(forecast, problem)
+    fitted = fitted_forecast(scenario, clean, days=days, jobs=jobs, origins=origins)
+    paths = fitted.draw_paths(int(seed), int(path_count or problem.shape[1]), days)
+    dates = pd.date_range(fitted.start, periods=days, freq="D")
+    return _align(fitted.terminal_ids, dates, paths, problem)
 
 
-def _align(forecast, problem) -> np.ndarray:
-    """The forecast's paths in the problem's terminal order, cut to the problem's days."""
-    order = [list(forecast.terminal_ids).index(t) for t in problem.terminal_ids]
-    start = list(pd.DatetimeIndex(forecast.dates)).index(problem.dates[0])
-    return np.asarray(forecast.paths, dtype=float)[order, :, start:start + len(problem.dates)]
+def _align(terminal_ids, dates, paths: np.ndarray, problem) -> np.ndarray:
+    """Paths ``[terminal, path, day]`` over ``dates`` in the problem's terminal order, cut to
+    the problem's days."""
+    order = [list(terminal_ids).index(t) for t in problem.terminal_ids]
+    start = list(pd.DatetimeIndex(dates)).index(problem.dates[0])
+    return np.asarray(paths, dtype=float)[order, :, start:start + len(problem.dates)]
 
 
 def out_of_sample_check(scenario, clean, problem, result, *, path_count: int | None = None,

@@ -16,10 +16,18 @@ from the same profile scaled to their own mean. Both are named in ``fallbacks``.
 
 When a terminal's history ends before the day before the first planning day, the forecast
 starts after its last day and the days in between are simulated and dropped.
+
+The result keeps the fitted models (:class:`FittedForecast`): ``result.draw_paths(seed,
+count, days)`` draws more demand paths from them without fitting again — the same paths the
+stage itself draws for that seed. The stage remembers its fitted models for the cleaned
+history object it was given (for as long as that object lives), so that a later step of the
+same run that only needs fresh paths (:func:`fitted_forecast`, used by the out-of-sample
+check) draws them instead of running the stage again.
 """
 from __future__ import annotations
 
 import inspect
+import weakref
 from collections.abc import Callable, Mapping, Sequence
 from concurrent.futures import ProcessPoolExecutor
 from dataclasses import dataclass, field
@@ -43,6 +51,67 @@ ACCURACY_COLUMNS = ("terminal_id", "model", "mase", "smape", "pinball_10", "pinb
 
 
 @dataclass(frozen=True)
+class FittedTerminal:
+    """One terminal's fitted champion, ready to draw demand paths without refitting.
+
+    ``exog_future``: calendar features of the days from the day after the terminal's history
+    to the last forecast day of the stage; ``gap``: how many of those days lie before the
+    first forecast day (simulated and dropped).
+    """
+
+    model: DemandModel
+    exog_future: np.ndarray
+    gap: int
+
+    def draw(self, count: int, seed: np.random.SeedSequence, days: int,
+             extra_exog: np.ndarray | None = None) -> np.ndarray:
+        """Demand paths ``[count, days]`` from the first forecast day, drawn from ``seed``;
+        ``extra_exog`` holds the calendar features of the days beyond the stage's last day
+        when ``days`` asks for more."""
+        h = self.gap + int(days)
+        fut = self.exog_future
+        if h > len(fut):
+            fut = np.vstack([fut, np.asarray(extra_exog)[: h - len(fut)]])
+        return simulate_paths(self.model, h, int(count), seed, fut[:h], keep=int(days))
+
+
+@dataclass(frozen=True)
+class FittedForecast:
+    """The fitted champions of every terminal of one run of the stage.
+
+    ``terminal_ids`` in the order of ``terminals.csv``; ``start`` the first forecast day;
+    ``days`` the number of forecast days the stage was run for; ``calendar`` the scenario's
+    calendar settings (for the features of later days).
+    """
+
+    terminal_ids: tuple[str, ...]
+    start: pd.Timestamp
+    days: int
+    calendar: object
+    terminals: tuple[FittedTerminal, ...]
+
+    def draw_paths(self, seed: int, count: int, days: int | None = None) -> np.ndarray:
+        """Joint demand paths ``[terminal, path, day]`` for ``days`` days from ``start``
+        (default: the stage's days), ``count`` per terminal, seeded per terminal position by
+        :func:`~planner.forecast.paths.terminal_seeds` — for the same seed, count and days
+        exactly the paths :func:`forecast_scenario` draws."""
+        days = self.days if days is None else int(days)
+        if days < 1 or count < 0:
+            raise ValueError(f"draw_paths needs days >= 1 and count >= 0, got {days}, {count}")
+        extra = None
+        if days > self.days:
+            later = pd.date_range(self.start + pd.Timedelta(days=self.days),
+                                  periods=days - self.days, freq="D")
+            extra = calendar_features(later, self.calendar)[list(FEATURE_COLUMNS)] \
+                .to_numpy(dtype=float)
+        seeds = terminal_seeds(int(seed), len(self.terminals))
+        out = np.empty((len(self.terminals), int(count), days))
+        for i, terminal in enumerate(self.terminals):
+            out[i] = terminal.draw(count, seeds[i], days, extra)
+        return out
+
+
+@dataclass(frozen=True)
 class ForecastResult:
     """Forecasts of every terminal of a scenario.
 
@@ -61,7 +130,9 @@ class ForecastResult:
       ``coverage_80, coverage_95`` (fractions), ``score``, ``origins`` (count);
     - ``fallbacks``: one sentence per model failure or fallback;
     - ``residuals``: ``terminal_id -> Series`` of the champion's one-step in-sample residuals
-      (log1p scale for the log models), indexed by date.
+      (log1p scale for the log models), indexed by date;
+    - ``fitted``: the fitted champions (:class:`FittedForecast`; None for a result built
+      without the stage), from which :meth:`draw_paths` draws more paths.
     """
 
     terminal_ids: tuple[str, ...]
@@ -72,6 +143,15 @@ class ForecastResult:
     accuracy: pd.DataFrame
     fallbacks: list[str]
     residuals: dict[str, pd.Series] = field(default_factory=dict)
+    fitted: FittedForecast | None = None
+
+    def draw_paths(self, seed: int, count: int, days: int | None = None) -> np.ndarray:
+        """Fresh joint demand paths ``[terminal, path, day]`` from the fitted champions, no
+        refit (see :meth:`FittedForecast.draw_paths`): ``draw_paths(s, P, D)`` equals the
+        ``paths`` of the stage run with seed ``s``, ``P`` paths and ``D`` days."""
+        if self.fitted is None:
+            raise ValueError("this forecast keeps no fitted models to draw paths from")
+        return self.fitted.draw_paths(seed, count, days)
 
 
 @dataclass(frozen=True)
@@ -113,6 +193,7 @@ class TerminalForecast:
     accuracy: list[dict]
     fallbacks: list[str]
     residuals: np.ndarray
+    fitted: FittedTerminal
 
 
 def candidate_models(models: Sequence[str | DemandModel] | Mapping[str, DemandModel] | None,
@@ -207,14 +288,14 @@ def forecast_terminal(task: TerminalTask) -> TerminalForecast:
             fallbacks.append(f"{tid}: no history; paths from the network-average weekday "
                              "profile scaled to the median level of the network")
             reason = "no history: network profile at the median level"
-    fut = exog_future if exog_future.size else None
     cut = h - task.keep
-    quantiles = model.quantiles(h, fut, LEVELS)[:, cut:]
-    mean = model.mean(h, fut)[cut:]
-    paths = simulate_paths(model, h, task.path_count, task.seed, fut, keep=task.keep)
+    quantiles = model.quantiles(h, exog_future, LEVELS)[:, cut:]
+    mean = model.mean(h, exog_future)[cut:]
+    fitted = FittedTerminal(model, exog_future, cut)
+    paths = fitted.draw(task.path_count, task.seed, task.keep)
     return TerminalForecast(tid, paths, quantiles, mean, model.name, score, reason,
                             model.describe(), accuracy, fallbacks,
-                            np.asarray(getattr(model, "residuals_", np.zeros(0))))
+                            np.asarray(getattr(model, "residuals_", np.zeros(0))), fitted)
 
 
 def _series(clean, terminal_ids: Sequence[str]) -> dict[str, tuple[pd.Timestamp, np.ndarray]]:
@@ -291,12 +372,55 @@ def forecast_scenario(scenario, clean, *, horizon_days: int, path_count: int, se
             results.append(forecast_terminal(task))
             if progress is not None:
                 progress(len(results), len(tasks))
-    return _assemble(terminal_ids, dates, results, series)
+    fitted = FittedForecast(terminal_ids, dates[0], len(dates), scenario.calendar,
+                            tuple(r.fitted for r in results))
+    _remember(clean, _fit_key(scenario, origins, candidates), fitted)
+    return _assemble(terminal_ids, dates, results, series, fitted)
+
+
+# The fitted models of the stage, per cleaned history object (by identity, for as long as it
+# lives) and per settings that change the fit.
+_FITTED: dict[int, tuple[weakref.ref, dict[tuple, FittedForecast]]] = {}
+
+
+def _fit_key(scenario, origins: int, candidates: tuple[DemandModel, ...]) -> tuple:
+    """What the fitted models depend on besides the cleaned history."""
+    return (tuple(scenario.terminal_ids), pd.Timestamp(scenario.start_date),
+            repr(scenario.calendar), int(origins), tuple(repr(c) for c in candidates))
+
+
+def _remember(clean, key: tuple, fitted: FittedForecast) -> None:
+    try:
+        ref = weakref.ref(clean, lambda _ref, k=id(clean): _FITTED.pop(k, None))
+    except TypeError:                       # an object that cannot be referenced weakly
+        return
+    entry = _FITTED.get(id(clean))
+    if entry is None or entry[0]() is not clean:
+        entry = _FITTED[id(clean)] = (ref, {})
+    entry[1][key] = fitted
+
+
+def fitted_forecast(scenario, clean, *, days: int, jobs: int = 1, origins: int = 8,
+                    models: Sequence[str | DemandModel] | Mapping[str, DemandModel] | None
+                    = None) -> FittedForecast:
+    """The stage's fitted models for ``scenario`` and its cleaned history ``clean``: those of
+    an earlier :func:`forecast_scenario` call on the same ``clean`` object with the same
+    terminals, first planning day, calendar, origins and models; otherwise the stage is run
+    once (``days`` forecast days, no paths) and its fit kept."""
+    offset_column = list(FEATURE_COLUMNS).index("event_log_lift")
+    key = _fit_key(scenario, origins, candidate_models(models, offset_column))
+    entry = _FITTED.get(id(clean))
+    if entry is not None and entry[0]() is clean and key in entry[1]:
+        return entry[1][key]
+    result = forecast_scenario(scenario, clean, horizon_days=int(days), path_count=0, seed=0,
+                               jobs=jobs, origins=origins, models=models)
+    return result.fitted
 
 
 def _assemble(terminal_ids: tuple[str, ...], dates: pd.DatetimeIndex,
               results: list[TerminalForecast],
-              series: dict[str, tuple[pd.Timestamp, np.ndarray]]) -> ForecastResult:
+              series: dict[str, tuple[pd.Timestamp, np.ndarray]],
+              fitted: FittedForecast) -> ForecastResult:
     h = len(dates)
     paths = np.stack([r.paths for r in results]) if results else np.zeros((0, 0, h))
     quant = pd.DataFrame({
@@ -321,5 +445,5 @@ def _assemble(terminal_ids: tuple[str, ...], dates: pd.DatetimeIndex,
             days = pd.date_range(first, periods=len(y), freq="D")[len(y) - len(r.residuals):]
             residuals[r.terminal_id] = pd.Series(r.residuals, index=days, name=r.model)
     return ForecastResult(terminal_ids, dates, paths, quant, champion, accuracy, fallbacks,
-                          residuals)
+                          residuals, fitted)
 
