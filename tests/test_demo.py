@@ -170,3 +170,90 @@ def test_regeneration_is_byte_identical(tmp_path):
     assert written == shipped
     for rel in written:
         assert (tmp_path / rel).read_bytes() == (FOLDER / rel).read_bytes(), rel
+
+
+# ----------------------------------------------------------------------------- the family
+
+HOLDOUT = {name: FOLDER.parent / make_demo.NETWORKS[name].folder for name in make_demo.HOLDOUT}
+
+
+@pytest.mark.parametrize("name", make_demo.HOLDOUT)
+def test_holdout_networks_are_committed_small_and_regenerate_byte_identically(name, tmp_path):
+    folder = HOLDOUT[name]
+    size = sum(p.stat().st_size for p in folder.rglob("*") if p.is_file())
+    assert size <= 1_500_000
+    make_demo.main(tmp_path, verbose=False, settings=make_demo.NETWORKS[name])
+    written = sorted(p.relative_to(tmp_path) for p in tmp_path.rglob("*") if p.is_file())
+    shipped = sorted(p.relative_to(folder) for p in folder.rglob("*") if p.is_file())
+    assert written == shipped
+    for rel in written:
+        assert (tmp_path / rel).read_bytes() == (folder / rel).read_bytes(), rel
+
+
+@pytest.mark.parametrize("name", make_demo.HOLDOUT)
+def test_holdout_networks_carry_their_settings(name):
+    settings = make_demo.NETWORKS[name]
+    folder = HOLDOUT[name]
+    scenario = load_scenario(folder)
+    assert len(scenario.terminals) == sum(len(t[3]) for t in settings.towns) == 30
+    assert scenario.calendar.country == settings.country != "DE"
+    assert list(scenario.calendar.paydays) == [p.rule for p in settings.paydays if p.declared]
+    assert scenario.start_date == settings.start_date and scenario.start_date.day_of_week == 0
+    raw = pd.read_csv(folder / "dispense.csv", parse_dates=["date"])
+    truth = pd.read_csv(folder / "truth" / "true_demand.csv", parse_dates=["date"])
+    injected = pd.read_csv(folder / "truth" / "injected.csv", parse_dates=["date"])
+    terms = pd.read_csv(folder / "truth" / "terminal_truth.csv")
+    # the known list of recording errors: every kind of the settings, each where it says
+    errors = injected[injected["kind"] == "outlier"]
+    assert len(errors) == settings.recording_errors
+    for kind in ("(x10)", "(digit typed twice)", "(/10)"):
+        assert errors["detail"].str.contains(kind, regex=False).any()
+    both = raw.merge(truth, on=["terminal_id", "date"]).merge(
+        errors[["terminal_id", "date"]].assign(err=True), on=["terminal_id", "date"], how="left")
+    wrong = both["err"].fillna(False).astype(bool)
+    ratio = both.loc[wrong, "amount"] / both.loc[wrong, "demand"]
+    assert ((ratio > 8) | (ratio < 0.12)).all()
+    ok = both[(both["status"] == "ok") & ~wrong]
+    assert (ok["amount"] == ok["demand"]).all()
+    # machines dry on most Sundays, with 30-70 % of the demand recorded; the others rarely
+    sundays = both[both["date"].dt.day_of_week == 6]
+    dry_share = sundays.groupby("terminal_id")["status"].apply(lambda s: (s == "dry").mean())
+    marked = terms.loc[terms["dry_sunday"], "terminal_id"]
+    assert len(marked) == round(settings.dry_sunday_share * 30)
+    assert (dry_share[marked] >= 0.8).all()
+    assert (dry_share.drop(marked) < 0.2).all()
+    capped = sundays[sundays["terminal_id"].isin(marked) & (sundays["status"] == "dry")]
+    share = capped["amount"] / capped["demand"]
+    assert share.between(0.29, 0.71).mean() > 0.9
+    # level shifts are in the truth and in the list
+    shifts = injected[injected["kind"] == "level_shift"]
+    assert len(shifts) == len(settings.level_shifts) >= 2
+
+
+@pytest.mark.parametrize("rule", ["last_business_day", "first_business_day", 25, 15, 31])
+def test_generator_paydays_agree_with_the_planner_calendar(rule):
+    """Two independent implementations of the payday rules of the input contract (the
+    generator's and planner.calendar's) give the same days, holidays of another country
+    included."""
+    from planner.calendar import payday_dates, public_holidays
+    from planner.scenario import CalendarSettings
+
+    dates = pd.date_range("2024-01-01", "2026-12-31", freq="D")
+    hol = make_demo.public_holidays(dates, "AT")
+    ours = make_demo.payday_days(dates, hol, rule)
+    theirs = payday_dates(dates[0], dates[-1], [rule],
+                          public_holidays(range(2023, 2028), CalendarSettings(country="AT")))
+    assert list(ours) == list(theirs[(theirs >= dates[0]) & (theirs <= dates[-1])])
+
+
+def test_development_network_keeps_an_undeclared_payday_in_its_truth(tmp_path):
+    settings = make_demo.NETWORKS["fenmoor"]
+    assert "fenmoor" in make_demo.DEVELOPMENT and not settings.folder
+    with pytest.raises(ValueError, match="out_dir"):
+        make_demo.main(None, verbose=False, settings=settings)
+    folder = make_demo.main(tmp_path / "fenmoor", verbose=False, settings=settings)
+    scenario = load_scenario(folder)
+    hidden = [p.rule for p in settings.paydays if not p.declared]
+    assert hidden == ["last_business_day"]
+    assert list(scenario.calendar.paydays) == [10]
+    assert "declared=False" in (folder / "truth" / "settings.txt").read_text()

@@ -1,9 +1,14 @@
-"""Write the Northvale demo scenario: Kestrel Valley Bank, 60 terminals, 3 depots, 26 months.
+"""Write invented demo networks: the Northvale demo (Kestrel Valley Bank, 60 terminals, 3
+depots, 26 months) and a small family of other networks made by the same generator with other
+settings (:class:`NetworkSettings`).
 
-Everything here is invented: the bank, the Northvale region, its towns and the machine ids.
+Everything here is invented: the banks, the regions, their towns and the machine ids.
 Run ``python -m planner.demo.make_demo`` from the repo root; it rewrites ``planner/demo/northvale``
 byte for byte (one seeded random generator, drawn in a fixed order) and prints the check that
-the depot crew limits bind on busy days.
+the depot crew limits bind on busy days. ``python -m planner.demo.make_demo --network NAME
+[FOLDER]`` writes another network of :data:`NETWORKS` (the hold-out networks into their
+committed folders under ``planner/demo/holdout/`` by default; the development networks need a
+folder).
 
 How the history is made, in the order of the code:
 
@@ -11,11 +16,14 @@ How the history is made, in the order of the code:
    village, campus, hospital). The type sets the level of daily withdrawals, the weekday profile,
    how strongly paydays and holidays move demand, the noise and the annual season. Capacity
    (cassettes), insurance limit, bundle and the allowed visit weekdays follow from the level.
+   Other networks may change the weekday profiles of the types and give every terminal its own
+   profile around its type's (``weekday_jitter``).
 2. **True demand** (multiplicative, per terminal and day) = level × trend × level shift ×
-   weekday × annual season × Christmas shopping × payday × holiday × fair × exp(AR(1) noise),
-   rounded to 10 EUR (banknotes). Paydays: last business day of the month, lifted on the day and
-   the two following days. Holidays: German public holidays (``holidays`` library, "DE"); low on
-   the day, lifted the day before and slightly the day after.
+   weekday × annual season × Christmas shopping × paydays × holiday × events × exp(AR(1)
+   noise), rounded to 10 EUR (banknotes). Paydays (``paydays``; Northvale: the last business day
+   of the month) lift the day and the two following days. Holidays: the public holidays of
+   ``country`` (``holidays`` library; Northvale "DE"); low on the day, lifted the day before and
+   slightly the day after.
 3. **Outages** (``down``): a few short runs per terminal per year, one longer one; nothing is
    dispensed.
 4. **The legacy routine** the bank has used until now: fixed visit weekdays per terminal, a
@@ -23,30 +31,33 @@ How the history is made, in the order of the code:
    ran dry (not on Sundays or holidays). The machine dispenses ``min(demand, balance)``; a day
    on which demand exceeded the balance is recorded as ``dry`` with the amount actually
    dispensed (a lower bound of demand). ``balance_now`` is the simulated end-of-day balance on
-   the last history day.
-5. **Recording problems**: a few amounts multiplied by ten or with a duplicated digit, and
-   missing rows (scattered, plus one block of a failed data feed).
+   the last history day. A share ``dry_sunday_share`` of the machines is visited Mon, Wed and
+   Fri and has only 30–70 % of the day's demand left on 90 % of the Sundays (a mall machine
+   whose Friday load does not last the weekend): they run dry on most Sundays.
+5. **Recording problems**: a few amounts multiplied by ten, with a digit typed twice or (other
+   networks) divided by ten, and missing rows (scattered, plus one block of a failed data feed).
 
 Files written into the scenario folder: ``scenario.toml``, ``terminals.csv``, ``depots.csv``,
 ``dispense.csv``, ``committed.csv`` (the input contract), and ``truth/`` (not part of the
 contract): ``true_demand.csv`` (terminal_id, date, demand: the demand before censoring, outages
 and recording errors, for the history and the 28 days from the first planning day),
-``injected.csv`` (every injected problem: terminal_id, date, kind, detail) and
-``terminal_truth.csv`` (the generator's parameters per terminal and the legacy routine).
+``injected.csv`` (every injected problem: terminal_id, date, kind, detail; the recording errors
+are the rows of kind ``outlier``), ``terminal_truth.csv`` (the generator's parameters per
+terminal and the legacy routine) and, for the other networks, ``settings.txt`` (the generator
+settings, including paydays the scenario does not declare).
 """
 from __future__ import annotations
 
+import argparse
 import itertools
 import math
-import sys
-from dataclasses import dataclass
+from dataclasses import dataclass, field, fields
 from pathlib import Path
 
 import holidays as holiday_calendars
 import numpy as np
 import pandas as pd
 
-OUT = Path(__file__).with_name("northvale")
 SEED = 20261130
 
 HISTORY_START = pd.Timestamp("2024-10-01")
@@ -153,6 +164,188 @@ LEVEL_SHIFTS = (
 )
 
 
+
+
+@dataclass(frozen=True)
+class Payday:
+    """A payday of the generator: ``rule`` as in scenario.toml (``"last_business_day"``,
+    ``"first_business_day"`` or a day of the month, moved to the previous business day on a
+    weekend or holiday), the lifts of the day and of the two following days (each × the site
+    type's ``payday`` factor), and whether scenario.toml declares it."""
+
+    rule: str | int
+    lifts: tuple[float, float, float] = (0.20, 0.25, 0.10)
+    declared: bool = True
+
+
+@dataclass(frozen=True)
+class NetworkSettings:
+    """Everything that makes one invented network differ from another.
+
+    ``towns``: (code, town, depot, site types) as :data:`TOWNS`; ``depot_crews``: (depot,
+    crews Mon…Sun); ``history_start`` … ``last_history_day`` (a Sunday; planning starts the day
+    after); ``country``: public holidays (``holidays`` library code); ``paydays``;
+    ``level_shifts``: (terminal, first day, factor, why); ``events``: (name, date, lift),
+    declared in scenario.toml; ``site_weeks``: (site type, weekday profile Mon…Sun) replacing
+    the type's profile; ``weekday_jitter``: log standard deviation of each terminal's own
+    weekday profile around its type's; ``dry_sunday_share``: share of machines run dry on most
+    Sundays by the legacy routine; ``recording_errors`` and their ``error_kinds`` (``x10``,
+    ``digit`` typed twice, ``div10``); ``folder``: default output folder beside this file.
+    """
+
+    name: str
+    seed: int
+    towns: tuple
+    depot_crews: tuple[tuple[str, tuple[int, ...]], ...]
+    history_start: str
+    last_history_day: str
+    remote_towns: tuple[str, ...] = ()
+    country: str = "DE"
+    paydays: tuple[Payday, ...] = (Payday("last_business_day"),)
+    level_shifts: tuple[tuple[str, str, float, str], ...] = ()
+    events: tuple[tuple[str, str, float], ...] = ()
+    site_weeks: tuple[tuple[str, tuple[float, ...]], ...] = ()
+    weekday_jitter: float = 0.0
+    dry_sunday_share: float = 0.0
+    recording_errors: int = 14
+    error_kinds: tuple[str, ...] = ("x10", "digit")
+    folder: str = ""
+
+    @property
+    def start_date(self) -> pd.Timestamp:
+        """The first planning day (the day after the history)."""
+        return pd.Timestamp(self.last_history_day) + pd.Timedelta(days=1)
+
+    @property
+    def crews(self) -> dict[str, tuple[int, ...]]:
+        return dict(self.depot_crews)
+
+    def site_types(self) -> dict[str, SiteType]:
+        """The site types with this network's weekday profiles."""
+        weeks = dict(self.site_weeks)
+        return {name: (SiteType(**{**{f.name: getattr(st, f.name) for f in fields(st)},
+                                   "week": tuple(weeks[name])}) if name in weeks else st)
+                for name, st in SITE_TYPES.items()}
+
+
+NORTHVALE = NetworkSettings(
+    name="Kestrel Valley Bank - Northvale region", seed=SEED, towns=TOWNS,
+    depot_crews=tuple(DEPOT_CREWS.items()), history_start=f"{HISTORY_START:%Y-%m-%d}",
+    last_history_day=f"{LAST_HISTORY_DAY:%Y-%m-%d}", remote_towns=REMOTE_TOWNS,
+    level_shifts=LEVEL_SHIFTS,
+    events=tuple(("Northvale winter fair", d, FAIR_LIFT) for d in FAIR_DATES),
+    folder="northvale")
+
+
+# The other networks of the family. Two are frozen as a hold-out: their folders under
+# planner/demo/holdout/ are committed with their truth, and no choice of a method or setting
+# of the planner may be made by looking at them (they only measure). The development networks
+# are for trying methods out; they are written on demand (``--network NAME FOLDER``).
+SALTREACH = NetworkSettings(
+    name="Merrow Coast Savings - Saltreach district", seed=73_155_021,
+    towns=(
+        ("SLT", "Saltreach", "Saltreach", ["shopping centre", "high street", "high street",
+                                           "high street", "station", "station", "campus",
+                                           "hospital"]),
+        ("DHW", "Dunhollow", "Saltreach", ["high street", "station", "village", "village"]),
+        ("OKW", "Oakwick", "Saltreach", ["village", "village", "village"]),
+        ("QNK", "Quennock", "Quennock", ["shopping centre", "shopping centre", "high street",
+                                         "high street", "station", "hospital"]),
+        ("TRV", "Tarrow Vale", "Quennock", ["high street", "village", "village"]),
+        ("FSW", "Fishlow", "Quennock", ["campus", "village", "village"]),
+        ("ELN", "Elbury Ness", "Quennock", ["village", "village", "village"]),
+    ),
+    depot_crews=(("Saltreach", (4, 4, 4, 4, 4, 1, 0)), ("Quennock", (4, 4, 4, 4, 4, 1, 0))),
+    history_start="2025-02-03", last_history_day="2026-09-27", remote_towns=("ELN",),
+    country="NL", paydays=(Payday(25, (0.25, 0.20, 0.08)),),
+    level_shifts=(("SLT-002", "2025-11-03", 1.30, "new office block opposite"),
+                  ("QNK-004", "2026-04-06", 0.75, "a second machine opened next door"),
+                  ("TRV-002", "2025-07-07", 1.25, "the village shop closed its till")),
+    events=(("Saltreach harbour days", "2025-08-16", 1.35),
+            ("Saltreach harbour days", "2026-08-15", 1.35)),
+    site_weeks=(("shopping centre", (0.80, 0.85, 0.90, 1.05, 1.45, 1.55, 0.40)),
+                ("high street", (0.95, 0.95, 1.00, 1.05, 1.40, 1.20, 0.45)),
+                ("village", (1.00, 0.90, 0.95, 1.05, 1.30, 1.10, 0.70))),
+    weekday_jitter=0.08, dry_sunday_share=0.2, recording_errors=30,
+    error_kinds=("x10", "digit", "div10"), folder="holdout/saltreach")
+
+BRANNOCK = NetworkSettings(
+    name="Fellside Savings Bank - Brannock district", seed=58_204_377,
+    towns=(
+        ("BNK", "Brannock", "Brannock", ["shopping centre", "shopping centre", "high street",
+                                         "high street", "station", "campus", "hospital"]),
+        ("HLW", "Hallowmere", "Brannock", ["high street", "village", "village", "village"]),
+        ("RSK", "Ruskby", "Brannock", ["station", "village", "village"]),
+        ("GVN", "Gavenstead", "Gavenstead", ["shopping centre", "high street", "high street",
+                                             "station", "hospital", "campus"]),
+        ("PLD", "Pellingdale", "Gavenstead", ["high street", "village", "village"]),
+        ("WYT", "Wythercombe", "Gavenstead", ["high street", "village", "village", "village"]),
+        ("CRG", "Carrig Moor", "Gavenstead", ["village", "village", "village"]),
+    ),
+    depot_crews=(("Brannock", (4, 4, 4, 4, 4, 1, 0)), ("Gavenstead", (4, 4, 4, 4, 4, 1, 0))),
+    history_start="2024-05-06", last_history_day="2025-12-28", remote_towns=("CRG",),
+    country="AT",
+    paydays=(Payday("first_business_day", (0.30, 0.15, 0.05)),
+             Payday(15, (0.15, 0.10, 0.05))),
+    level_shifts=(("BNK-003", "2025-03-03", 0.70, "the street was closed to traffic"),
+                  ("WYT-001", "2024-10-07", 1.35, "the bank branch next door closed")),
+    site_weeks=(("shopping centre", (0.90, 0.90, 0.95, 1.05, 1.35, 1.45, 0.30)),
+                ("station", (1.15, 1.10, 1.05, 1.10, 1.25, 0.80, 0.65)),
+                ("hospital", (1.10, 1.05, 1.05, 1.00, 1.05, 0.90, 0.80))),
+    weekday_jitter=0.10, dry_sunday_share=0.15, recording_errors=30,
+    error_kinds=("x10", "digit", "div10"), folder="holdout/brannock")
+
+FENMOOR = NetworkSettings(
+    name="Cobble Vale Bank - Fenmoor region", seed=40_917_733,
+    towns=(
+        ("FNM", "Fenmoor", "Fenmoor", ["shopping centre", "high street", "high street",
+                                       "station", "campus", "hospital", "high street"]),
+        ("LWK", "Lowick Fen", "Fenmoor", ["village", "village", "high street"]),
+        ("SDG", "Sedgemarsh", "Fenmoor", ["village", "village", "station", "village"]),
+        ("ARN", "Arnholt", "Arnholt", ["shopping centre", "high street", "station",
+                                       "hospital", "high street"]),
+        ("MWB", "Mawby", "Arnholt", ["village", "village", "village"]),
+        ("TYN", "Tynsell", "Arnholt", ["high street", "village", "campus"]),
+        ("BRK", "Brackenholt", "Arnholt", ["village", "village", "village", "village", "village"]),
+    ),
+    depot_crews=(("Fenmoor", (4, 4, 4, 4, 4, 1, 0)), ("Arnholt", (4, 4, 4, 4, 4, 1, 0))),
+    history_start="2024-09-02", last_history_day="2026-04-26", remote_towns=("BRK",),
+    country="PL",
+    paydays=(Payday(10, (0.25, 0.20, 0.05)),
+             Payday("last_business_day", (0.15, 0.15, 0.05), declared=False)),
+    level_shifts=(("FNM-003", "2025-05-05", 1.30, "a new supermarket"),
+                  ("MWB-002", "2025-10-06", 0.75, "the road was rebuilt")),
+    site_weeks=(("high street", (0.95, 1.00, 1.00, 1.05, 1.30, 1.30, 0.40)),),
+    weekday_jitter=0.07, dry_sunday_share=0.2, recording_errors=30,
+    error_kinds=("x10", "digit", "div10"))
+
+GLENARROW = NetworkSettings(
+    name="Thornbury Guild Bank - Glenarrow valley", seed=91_550_642,
+    towns=(
+        ("GLN", "Glenarrow", "Glenarrow", ["shopping centre", "shopping centre", "high street",
+                                           "high street", "high street", "station", "campus",
+                                           "hospital", "station"]),
+        ("KLM", "Kilmory Ford", "Glenarrow", ["high street", "village", "village"]),
+        ("AVD", "Avondrie", "Glenarrow", ["village", "village", "village"]),
+        ("CRN", "Carnbrae", "Carnbrae", ["shopping centre", "high street", "high street",
+                                         "station", "hospital"]),
+        ("DLM", "Dalmorrow", "Carnbrae", ["village", "village", "high street", "campus"]),
+        ("SKR", "Skerryvale", "Carnbrae", ["village", "village", "village", "village"]),
+    ),
+    depot_crews=(("Glenarrow", (4, 4, 4, 4, 4, 1, 0)), ("Carnbrae", (4, 4, 4, 4, 4, 1, 0))),
+    history_start="2024-03-04", last_history_day="2025-10-26", remote_towns=("SKR",),
+    country="FR", paydays=(Payday("last_business_day", (0.20, 0.20, 0.08)),
+                           Payday(5, (0.10, 0.10, 0.05))),
+    level_shifts=(("GLN-004", "2025-01-06", 1.25, "a tram stop opened"),),
+    weekday_jitter=0.06, dry_sunday_share=0.25, recording_errors=30,
+    error_kinds=("x10", "digit", "div10"))
+
+NETWORKS = {"northvale": NORTHVALE, "saltreach": SALTREACH, "brannock": BRANNOCK,
+            "fenmoor": FENMOOR, "glenarrow": GLENARROW}
+HOLDOUT = ("saltreach", "brannock")
+DEVELOPMENT = ("fenmoor", "glenarrow")
+
+
 # --------------------------------------------------------------------------------------------
 # Terminals
 # --------------------------------------------------------------------------------------------
@@ -162,12 +355,18 @@ def _ceil_to(x: float, step: float) -> float:
     return float(math.ceil(x / step - 1e-9) * step)
 
 
-def build_terminals(rng: np.random.Generator) -> pd.DataFrame:
-    """One row per terminal: ids, depot, site, machine limits, visit days, demand parameters."""
+def build_terminals(rng: np.random.Generator, settings: NetworkSettings = NORTHVALE,
+                    extra: np.random.Generator | None = None) -> pd.DataFrame:
+    """One row per terminal: ids, depot, site, machine limits, visit days, demand parameters.
+
+    ``extra`` (a second generator, so that Northvale's draws stay as they were) draws the
+    terminals' own weekday profiles and the machines dry on most Sundays.
+    """
+    types = settings.site_types()
     rows = []
-    for code, town, depot, sites in TOWNS:
+    for code, town, depot, sites in settings.towns:
         for i, site in enumerate(sites, 1):
-            st = SITE_TYPES[site]
+            st = types[site]
             level = float(rng.uniform(*st.level))
             # a machine holds roughly a week at its level, rounded up to a cassette size
             need = level * rng.uniform(6.0, 10.0)
@@ -190,13 +389,24 @@ def build_terminals(rng: np.random.Generator) -> pd.DataFrame:
                 "terminal_id": f"{code}-{i:03d}", "depot": depot, "town": town, "site": site,
                 "capacity": float(capacity), "insurance_limit": float(insurance),
                 "bundle": float(bundle), "visit_days": visit_days,
-                "visit_fee": REMOTE_VISIT_FEE if code in REMOTE_TOWNS else np.nan,
+                "visit_fee": REMOTE_VISIT_FEE if code in settings.remote_towns else np.nan,
                 "level": level,
                 "trend_annual": float(rng.uniform(-0.05, 0.02)),
+                "week": st.week,
             })
     out = pd.DataFrame(rows).set_index("terminal_id")
     out["limit"] = np.floor(np.minimum(out["capacity"], out["insurance_limit"])
                             / out["bundle"]) * out["bundle"]
+    out["dry_sunday"] = False
+    if extra is not None and settings.weekday_jitter > 0:
+        out["week"] = [tuple(float(v) for v in np.asarray(w) * np.exp(
+            extra.normal(0.0, settings.weekday_jitter, 7))) for w in out["week"]]
+    if extra is not None and settings.dry_sunday_share > 0:
+        able = np.flatnonzero([{"Mon", "Wed", "Fri"} <= set(v.split("|"))
+                               for v in out["visit_days"]])
+        count = min(len(able), int(round(settings.dry_sunday_share * len(out))))
+        picks = np.sort(extra.choice(able, size=count, replace=False))
+        out.iloc[picks, out.columns.get_loc("dry_sunday")] = True
     return out
 
 
@@ -205,18 +415,35 @@ def build_terminals(rng: np.random.Generator) -> pd.DataFrame:
 # --------------------------------------------------------------------------------------------
 
 
-def public_holidays(dates: pd.DatetimeIndex) -> pd.DatetimeIndex:
-    """German national public holidays within the span of ``dates``."""
+def public_holidays(dates: pd.DatetimeIndex, country: str = "DE") -> pd.DatetimeIndex:
+    """National public holidays of ``country`` within the span of ``dates``."""
     years = range(dates.min().year, dates.max().year + 1)
-    days = holiday_calendars.country_holidays("DE", years=list(years))
+    days = holiday_calendars.country_holidays(country, years=list(years))
     return pd.DatetimeIndex(sorted(pd.Timestamp(d) for d in days))
 
 
-def last_business_days(dates: pd.DatetimeIndex, hol: pd.DatetimeIndex) -> pd.DatetimeIndex:
-    """The last weekday of each month that is not a public holiday."""
-    business = dates[(dates.day_of_week < 5) & ~dates.isin(hol)]
-    frame = pd.Series(business, index=business)
-    return pd.DatetimeIndex(frame.groupby(business.to_period("M")).max().to_numpy())
+def payday_days(dates: pd.DatetimeIndex, hol: pd.DatetimeIndex, rule: str | int
+                ) -> pd.DatetimeIndex:
+    """The paydays of ``rule`` in every month touching ``dates`` (whole months, so the last
+    month of a range gets its real last business day): ``"last_business_day"`` and
+    ``"first_business_day"`` (Monday to Friday, not a public holiday), or a day of the month
+    (capped at the month's length) moved back to the previous business day."""
+    months = pd.period_range(dates.min().to_period("M"), dates.max().to_period("M"), freq="M")
+    days = pd.date_range(months[0].start_time - pd.Timedelta(days=10),
+                         months[-1].end_time.normalize(), freq="D")
+    business = days[(days.day_of_week < 5) & ~days.isin(hol)]
+    out = []
+    for month in months:
+        inside = business[business.to_period("M") == month]
+        if rule == "last_business_day":
+            out.append(inside.max())
+        elif rule == "first_business_day":
+            out.append(inside.min())
+        else:
+            target = month.start_time.normalize() + pd.Timedelta(
+                days=min(int(rule), month.days_in_month) - 1)
+            out.append(business[business <= target].max())
+    return pd.DatetimeIndex(sorted(set(out)))
 
 
 def _annual(season: tuple[float, ...], dates: pd.DatetimeIndex) -> np.ndarray:
@@ -228,34 +455,37 @@ def _annual(season: tuple[float, ...], dates: pd.DatetimeIndex) -> np.ndarray:
 
 
 def true_demand(terms: pd.DataFrame, dates: pd.DatetimeIndex,
-                rng: np.random.Generator) -> np.ndarray:
+                rng: np.random.Generator, settings: NetworkSettings = NORTHVALE) -> np.ndarray:
     """Daily demand in EUR, array ``[terminal, day]``, rounded to 10."""
-    hol = public_holidays(dates)
+    types = settings.site_types()
+    hol = public_holidays(dates, settings.country)
     is_hol = dates.isin(hol)
     eve = dates.isin(hol - pd.Timedelta(days=1)) & ~is_hol
     after = dates.isin(hol + pd.Timedelta(days=1)) & ~is_hol
-    pay = last_business_days(dates, hol)
-    pay0 = dates.isin(pay)
-    pay1 = dates.isin(pay + pd.Timedelta(days=1))
-    pay2 = dates.isin(pay + pd.Timedelta(days=2))
-    fair = dates.isin(pd.DatetimeIndex(FAIR_DATES))
+    paydays = []
+    for payday in settings.paydays:
+        pay = payday_days(dates, hol, payday.rule)
+        paydays.append((payday.lifts, [dates.isin(pay + pd.Timedelta(days=k)) for k in range(3)]))
+    events = np.ones(len(dates))
+    for _, day, lift in settings.events:
+        events[dates == pd.Timestamp(day)] *= lift
     dec = (dates.month == 12) & (dates.day <= 23)
     ramp = np.where(dec, dates.day / 23.0, 0.0)
-    years = ((dates - HISTORY_START).days / 365.25).to_numpy()
+    years = ((dates - pd.Timestamp(settings.history_start)).days / 365.25).to_numpy()
     wd = dates.day_of_week.to_numpy()
     n_days = len(dates)
     out = np.empty((len(terms), n_days))
     for k, (tid, t) in enumerate(terms.iterrows()):
-        st = SITE_TYPES[t["site"]]
-        week = np.asarray(st.week) / np.mean(st.week)
+        st = types[t["site"]]
+        week = np.asarray(t["week"]) / np.mean(t["week"])
         m = t["level"] * np.exp(t["trend_annual"] * years) * week[wd]
         m = m * _annual(st.season, dates) * (1 + st.christmas * ramp)
-        m = m * np.where(pay0, 1 + 0.20 * st.payday, 1.0)
-        m = m * np.where(pay1, 1 + 0.25 * st.payday, 1.0)
-        m = m * np.where(pay2, 1 + 0.10 * st.payday, 1.0)
+        for lifts, masks in paydays:
+            for lift, mask in zip(lifts, masks):
+                m = m * np.where(mask, 1 + lift * st.payday, 1.0)
         m = m * np.where(is_hol, st.holiday, 1.0) * np.where(eve, 1.30, 1.0)
-        m = m * np.where(after, 1.10, 1.0) * np.where(fair, FAIR_LIFT, 1.0)
-        for shift_tid, first, factor, _ in LEVEL_SHIFTS:
+        m = m * np.where(after, 1.10, 1.0) * events
+        for shift_tid, first, factor, _ in settings.level_shifts:
             if shift_tid == tid:
                 m = m * np.where(dates >= pd.Timestamp(first), factor, 1.0)
         # AR(1) on the log scale with stationary standard deviation sigma; the -sigma²/2
@@ -298,27 +528,32 @@ def _gap_cover(week: np.ndarray, days: list[int]) -> float:
     return worst
 
 
-def legacy_routine(terms: pd.DataFrame, rng: np.random.Generator) -> pd.DataFrame:
+def legacy_routine(terms: pd.DataFrame, rng: np.random.Generator,
+                   settings: NetworkSettings = NORTHVALE) -> pd.DataFrame:
     """The bank's current routine: fixed weekdays and a fixed swap load per terminal.
 
     Every machine is visited at least once a week, on as few weekdays as let the load cover the
     longest gap between visits at the level the terminal had when the routine was set up, with
     ``LEGACY_MARGIN``; the load is that cover, capped at the limit. Among the patterns with that
     many visits, the one that keeps the depot's busiest day least full is taken (the legacy
-    routine stays within the crews), then the one with the most even gaps.
+    routine stays within the crews), then the one with the most even gaps. A machine marked
+    ``dry_sunday`` is visited Mon, Wed and Fri (see :func:`sunday_caps`).
     """
-    used = {d: np.zeros(7) for d in DEPOT_CREWS}
+    crew_table = settings.crews
+    used = {d: np.zeros(7) for d in crew_table}
     rows = []
     # the largest machines get their days first, as a dispatcher would plan them
     for tid in terms.sort_values("level", ascending=False).index:
         t = terms.loc[tid]
-        week = np.asarray(SITE_TYPES[t["site"]].week)
+        week = np.asarray(t["week"])
         week = week / week.mean()
         allowed = [WEEKDAYS.index(w) for w in t["visit_days"].split("|")]
-        crews = np.asarray(DEPOT_CREWS[t["depot"]], float)
+        crews = np.asarray(crew_table[t["depot"]], float)
         busy = used[t["depot"]]
-        chosen = None
+        chosen = [0, 2, 4] if t["dry_sunday"] else None
         for k in range(1, len(allowed) + 1):
+            if chosen is not None:
+                break
             fits = [list(p) for p in itertools.combinations(allowed, k)
                     if _gap_cover(week, list(p)) * t["level"] * LEGACY_MARGIN <= t["limit"]]
             if fits:
@@ -338,16 +573,33 @@ def legacy_routine(terms: pd.DataFrame, rng: np.random.Generator) -> pd.DataFram
     return pd.DataFrame(rows).set_index("terminal_id").loc[terms.index]
 
 
+def sunday_caps(demand: np.ndarray, dates: pd.DatetimeIndex, terms: pd.DataFrame,
+                rng: np.random.Generator, *, share: float = 0.9) -> np.ndarray:
+    """The cash a machine can give ``[terminal, day]`` beyond its balance: unlimited, except at
+    the machines marked ``dry_sunday``, where on a share ``share`` of the Sundays only 30–70 %
+    of the day's demand is there (the Friday load of a machine in a shopping mall does not last
+    its weekend trade: it runs dry on most Sundays, and the recorded amount is what it had)."""
+    caps = np.full(demand.shape, np.inf)
+    sundays = np.flatnonzero(dates.day_of_week == 6)
+    for k in np.flatnonzero(terms["dry_sunday"].to_numpy()):
+        hit = rng.random(len(sundays)) < share
+        part = rng.uniform(0.3, 0.7, len(sundays))
+        caps[k, sundays[hit]] = part[hit] * demand[k, sundays[hit]]
+    return caps
+
+
 def simulate_legacy(demand: np.ndarray, down: np.ndarray, dates: pd.DatetimeIndex,
-                    terms: pd.DataFrame, routine: pd.DataFrame
+                    terms: pd.DataFrame, routine: pd.DataFrame, country: str = "DE",
+                    caps: np.ndarray | None = None
                     ) -> tuple[np.ndarray, np.ndarray, np.ndarray, pd.DataFrame]:
-    """Run the legacy routine over the history (swap).
+    """Run the legacy routine over the history (swap); ``caps`` (see :func:`sunday_caps`)
+    limits the cash a machine can give on a day.
 
     Returns dispensed ``[terminal, day]``, status codes ``[terminal, day]`` (0 ok, 1 dry,
     2 down), the end-of-day balance of the last day per terminal, and the visits made.
     """
     n, days = demand.shape
-    hol = dates.isin(public_holidays(dates))
+    hol = dates.isin(public_holidays(dates, country))
     regular = np.zeros((n, 7), bool)
     for k, tid in enumerate(terms.index):
         for w in routine.at[tid, "legacy_days"].split("|"):
@@ -368,6 +620,8 @@ def simulate_legacy(demand: np.ndarray, down: np.ndarray, dates: pd.DatetimeInde
             kind = "regular" if regular[k, wd] else "emergency"
             visits.append((terms.index[k], dates[d], load[k], kind))
         emergency = emergency & ~visit
+        if caps is not None:
+            balance = np.minimum(balance, caps[:, d])
         give = np.where(down[:, d], 0.0, np.minimum(demand[:, d], balance))
         dry = ~down[:, d] & (demand[:, d] > balance)
         balance = balance - give
@@ -378,29 +632,40 @@ def simulate_legacy(demand: np.ndarray, down: np.ndarray, dates: pd.DatetimeInde
     return dispensed, status, balance, frame
 
 
-def recording_problems(dispensed: np.ndarray, status: np.ndarray, rng: np.random.Generator
+def recording_problems(dispensed: np.ndarray, status: np.ndarray, rng: np.random.Generator,
+                       settings: NetworkSettings = NORTHVALE
                        ) -> tuple[np.ndarray, np.ndarray, list[tuple[int, int, str, str]]]:
     """Recorded amounts with a few errors, and a mask of rows that were kept.
 
-    Errors: an amount multiplied by ten, or one digit typed twice (8430 → 88430); both only on
-    ordinary days with something dispensed. Missing rows: about 0.3 % at random and one block of
-    nine days at one terminal.
+    Errors (``settings.recording_errors`` of them, the kinds ``settings.error_kinds`` in turn):
+    an amount multiplied by ten (``x10``), one digit typed twice (``digit``: 8430 → 88430) or
+    divided by ten (``div10``: 8430 → 840, a slipped decimal); all only on ordinary days with
+    something dispensed. Missing rows: about 0.3 % at random and one block of nine days at one
+    terminal.
     """
     n, days = dispensed.shape
     recorded = dispensed.copy()
     injected: list[tuple[int, int, str, str]] = []
     candidates = np.argwhere((status == 0) & (dispensed >= 1000))
-    picks = candidates[rng.choice(len(candidates), size=14, replace=False)]
+    picks = candidates[rng.choice(len(candidates), size=settings.recording_errors,
+                                  replace=False)]
+    kinds = settings.error_kinds
     for j, (k, d) in enumerate(sorted(map(tuple, picks))):
         old = int(dispensed[k, d])
-        if j % 2 == 0:
+        kind = kinds[j % len(kinds)]
+        if kind == "x10":
             new = old * 10
             detail = f"{old} recorded as {new} (x10)"
-        else:
+        elif kind == "digit":
             text = str(old)
             pos = int(rng.integers(0, len(text) - 1))  # never the final 0: stays a multiple of 10
             new = int(text[:pos + 1] + text[pos] + text[pos + 1:])
             detail = f"{old} recorded as {new} (digit typed twice)"
+        elif kind == "div10":
+            new = int(round(old / 100.0)) * 10
+            detail = f"{old} recorded as {new} (/10)"
+        else:
+            raise ValueError(f"unknown recording error kind {kind!r}")
         recorded[k, d] = new
         injected.append((int(k), int(d), "outlier", detail))
     keep = rng.random((n, days)) > 0.003
@@ -435,7 +700,8 @@ def _spread(need: float, cover: np.ndarray) -> np.ndarray:
     return np.minimum(1.0, hi * share)
 
 
-def crew_check(terms: pd.DataFrame, weekly_demand: pd.Series) -> pd.DataFrame:
+def crew_check(terms: pd.DataFrame, weekly_demand: pd.Series,
+               settings: NetworkSettings = NORTHVALE) -> pd.DataFrame:
     """Visits a typical week needs per depot and weekday, against the crews.
 
     Per terminal: visits per week = weekly demand / usable load, where the usable load is the
@@ -450,12 +716,13 @@ def crew_check(terms: pd.DataFrame, weekly_demand: pd.Series) -> pd.DataFrame:
     depot, weekday, need (visits), crews.
     """
     rate_daily = CARRY_RATE_ANNUAL / 365
-    need = {d: np.zeros(7) for d in DEPOT_CREWS}
+    types = settings.site_types()
+    need = {d: np.zeros(7) for d in settings.crews}
     for tid, t in terms.iterrows():
         daily = weekly_demand[tid] / 7
         fee = t["visit_fee"] if np.isfinite(t["visit_fee"]) else VISIT_FEE
         usable = min(USABLE_SHARE * t["limit"], math.sqrt(2 * fee * daily / rate_daily))
-        week = np.asarray(SITE_TYPES[t["site"]].week)
+        week = np.asarray(t["week"] if "week" in t.index else types[t["site"]].week)
         allowed = sorted(WEEKDAYS.index(w) for w in t["visit_days"].split("|"))
         cover = np.zeros(7)
         for i, d in enumerate(allowed):
@@ -463,7 +730,7 @@ def crew_check(terms: pd.DataFrame, weekly_demand: pd.Series) -> pd.DataFrame:
             cover[d] = sum(week[(d + j) % 7] for j in range(gap))
         need[t["depot"]] += _spread(weekly_demand[tid] / usable, cover)
     rows = []
-    for depot, crews in DEPOT_CREWS.items():
+    for depot, crews in settings.crews.items():
         for w in range(6):
             rows.append({"depot": depot, "weekday": WEEKDAYS[w], "need": need[depot][w],
                          "crews": crews[w]})
@@ -475,16 +742,18 @@ def crew_check(terms: pd.DataFrame, weekly_demand: pd.Series) -> pd.DataFrame:
 # --------------------------------------------------------------------------------------------
 
 
-def _toml() -> str:
+def _toml(settings: NetworkSettings = NORTHVALE) -> str:
     events = "".join(
-        f'\n[[calendar.events]]\nname = "Northvale winter fair"\ndate = {d}\nlift = {FAIR_LIFT}\n'
-        for d in FAIR_DATES)
+        f'\n[[calendar.events]]\nname = "{name}"\ndate = {d}\nlift = {lift}\n'
+        for name, d, lift in settings.events)
+    rules = ", ".join(f'"{p.rule}"' if isinstance(p.rule, str) else str(p.rule)
+                      for p in settings.paydays if p.declared)
     return (
-        'name = "Kestrel Valley Bank - Northvale region"\n'
+        f'name = "{settings.name}"\n'
         'currency = "EUR"\n'
-        f"start_date = {START_DATE:%Y-%m-%d}\n\n"
+        f"start_date = {settings.start_date:%Y-%m-%d}\n\n"
         "[planning]\nhorizon_days = 14\nreplenishment = \"swap\"\nlock_days = 1\n\n"
-        "[calendar]\nholidays = \"DE\"\npaydays = [\"last_business_day\"]\n"
+        f"[calendar]\nholidays = \"{settings.country}\"\npaydays = [{rules}]\n"
         f"{events}\n"
         f"[costs]\ncarry_rate_annual = {CARRY_RATE_ANNUAL}\nvisit_fee = {VISIT_FEE:g}\n"
         f"emergency_visit_fee = {3 * VISIT_FEE:g}\nhandling_per_1000 = 0.7\n"
@@ -495,27 +764,44 @@ def _toml() -> str:
     )
 
 
+def settings_text(settings: NetworkSettings) -> str:
+    """The generator settings of a network as text (written to ``truth/settings.txt``)."""
+    lines = [f"{f.name} = {getattr(settings, f.name)!r}" for f in fields(settings)
+             if f.name not in ("towns", "name")]
+    lines += [f"town {code} {town!r} depot {depot!r}: {', '.join(sites)}"
+              for code, town, depot, sites in settings.towns]
+    return "\n".join([f"name = {settings.name!r}"] + lines) + "\n"
+
+
 def _write_csv(frame: pd.DataFrame, path: Path) -> None:
     path.parent.mkdir(parents=True, exist_ok=True)
     frame.to_csv(path, index=False, lineterminator="\n")
 
 
-def main(out_dir: Path | str | None = None, *, verbose: bool = True) -> Path:
-    """Write the Northvale scenario into ``out_dir`` (default: the ``northvale`` folder beside
-    this file) and, if ``verbose``, print the network figures and the crew check. Returns the
-    folder."""
-    out = Path(out_dir) if out_dir is not None else OUT
-    rng = np.random.default_rng(SEED)
-    terms = build_terminals(rng)
-    dates = pd.date_range(HISTORY_START, LAST_HISTORY_DAY + pd.Timedelta(days=TRUTH_DAYS_AHEAD))
-    n_hist = int((dates <= LAST_HISTORY_DAY).sum())
+def main(out_dir: Path | str | None = None, *, verbose: bool = True,
+         settings: NetworkSettings = NORTHVALE) -> Path:
+    """Write the network of ``settings`` (default: Northvale) into ``out_dir`` (default: its
+    ``folder`` beside this file) and, if ``verbose``, print the network figures and the crew
+    check. Returns the folder."""
+    if out_dir is None and not settings.folder:
+        raise ValueError(f"network {settings.name!r} has no folder of its own: give out_dir")
+    out = Path(out_dir) if out_dir is not None else Path(__file__).parent / settings.folder
+    rng = np.random.default_rng(settings.seed)
+    extra = np.random.default_rng([settings.seed, 1])
+    terms = build_terminals(rng, settings, extra)
+    last_day = pd.Timestamp(settings.last_history_day)
+    dates = pd.date_range(settings.history_start,
+                          last_day + pd.Timedelta(days=TRUTH_DAYS_AHEAD))
+    n_hist = int((dates <= last_day).sum())
     hist = dates[:n_hist]
-    demand = true_demand(terms, dates, rng)
+    demand = true_demand(terms, dates, rng, settings)
     down = outage_days(len(terms), n_hist, rng)
-    routine = legacy_routine(terms, rng)
+    routine = legacy_routine(terms, rng, settings)
+    caps = sunday_caps(demand[:, :n_hist], hist, terms, extra) \
+        if settings.dry_sunday_share > 0 else None
     dispensed, status, balance, visits = simulate_legacy(
-        demand[:, :n_hist], down, hist, terms, routine)
-    recorded, keep, injected = recording_problems(dispensed, status, rng)
+        demand[:, :n_hist], down, hist, terms, routine, settings.country, caps)
+    recorded, keep, injected = recording_problems(dispensed, status, rng, settings)
 
     ids = np.asarray(terms.index, dtype=object)
     k_idx, d_idx = np.nonzero(keep)  # row-major: terminal by terminal, dates in order
@@ -533,7 +819,7 @@ def main(out_dir: Path | str | None = None, *, verbose: bool = True) -> Path:
     for k, d in np.argwhere(status == 1):
         injected.append((int(k), int(d), "dry", f"demand {int(demand[k, d])}, dispensed "
                                                f"{int(dispensed[k, d])}"))
-    for tid, first, factor, why in LEVEL_SHIFTS:
+    for tid, first, factor, why in settings.level_shifts:
         k = terms.index.get_loc(tid)
         injected.append((int(k), int(hist.get_loc(pd.Timestamp(first))), "level_shift",
                          f"x{factor} from this day: {why}"))
@@ -554,10 +840,11 @@ def main(out_dir: Path | str | None = None, *, verbose: bool = True) -> Path:
         "site": terms["site"].to_numpy(),
         "visit_fee": terms["visit_fee"].map(lambda v: "" if np.isnan(v) else f"{v:g}"),
     })
-    depots = pd.DataFrame({"depot": list(DEPOT_CREWS),
-                           "max_visits_per_day": [max(c) for c in DEPOT_CREWS.values()]})
+    crews = settings.crews
+    depots = pd.DataFrame({"depot": list(crews),
+                           "max_visits_per_day": [max(c) for c in crews.values()]})
     for w, day in enumerate(WEEKDAYS):
-        depots[day] = [c[w] for c in DEPOT_CREWS.values()]
+        depots[day] = [c[w] for c in crews.values()]
 
     # Visits already ordered for the first planning day: the Monday machines that will run
     # lowest, loaded with their routine amount.
@@ -565,9 +852,18 @@ def main(out_dir: Path | str | None = None, *, verbose: bool = True) -> Path:
     cover = balance / np.maximum(first_day, 1.0)
     monday = np.array(["Mon" in v.split("|") for v in terms["visit_days"]])
     order = [k for k in np.argsort(cover, kind="stable") if monday[k]][:3]
+    if settings != NORTHVALE:
+        # every Monday machine that would not last the day, within the depot's Monday crews
+        free = {d: c[0] for d, c in settings.crews.items()}
+        order = []
+        for k in np.argsort(cover, kind="stable"):
+            depot = terms["depot"].iloc[k]
+            if monday[k] and cover[k] < 1.0 and free[depot] > 0:
+                order.append(k)
+                free[depot] -= 1
     committed = pd.DataFrame({
         "terminal_id": ids[sorted(order)],
-        "date": f"{START_DATE:%Y-%m-%d}",
+        "date": f"{settings.start_date:%Y-%m-%d}",
         "load": routine["legacy_load"].to_numpy()[sorted(order)].astype(np.int64),
     })
 
@@ -575,12 +871,16 @@ def main(out_dir: Path | str | None = None, *, verbose: bool = True) -> Path:
     truth_terms = truth_terms.assign(level=truth_terms["level"].round(0).astype(np.int64),
                                      trend_annual=truth_terms["trend_annual"].round(4),
                                      legacy_load=truth_terms["legacy_load"].astype(np.int64))
-    truth_terms = truth_terms.reset_index()[
-        ["terminal_id", "depot", "town", "site", "level", "trend_annual", "legacy_days",
-         "legacy_load"]]
+    columns = ["terminal_id", "depot", "town", "site", "level", "trend_annual", "legacy_days",
+               "legacy_load"]
+    if settings != NORTHVALE:
+        columns += ["dry_sunday", "weekday_profile"]
+        truth_terms["weekday_profile"] = ["|".join(f"{v / np.mean(w):.3f}" for v in w)
+                                          for w in truth_terms["week"]]
+    truth_terms = truth_terms.reset_index()[columns]
 
     out.mkdir(parents=True, exist_ok=True)
-    (out / "scenario.toml").write_text(_toml(), encoding="utf-8", newline="\n")
+    (out / "scenario.toml").write_text(_toml(settings), encoding="utf-8", newline="\n")
     _write_csv(terminals, out / "terminals.csv")
     _write_csv(depots, out / "depots.csv")
     _write_csv(dispense, out / "dispense.csv")
@@ -588,23 +888,27 @@ def main(out_dir: Path | str | None = None, *, verbose: bool = True) -> Path:
     _write_csv(truth, out / "truth" / "true_demand.csv")
     _write_csv(inj, out / "truth" / "injected.csv")
     _write_csv(truth_terms, out / "truth" / "terminal_truth.csv")
+    if settings != NORTHVALE:
+        (out / "truth" / "settings.txt").write_text(settings_text(settings), encoding="utf-8",
+                                                    newline="\n")
 
     if verbose:
         _print_figures(out, terms, routine, dispense, demand, n_hist, dates, visits, cover,
-                       order)
+                       order, settings)
     return out
 
 
 def _print_figures(out: Path, terms: pd.DataFrame, routine: pd.DataFrame,
                    dispense: pd.DataFrame, demand: np.ndarray,
                    n_hist: int, dates: pd.DatetimeIndex, visits: pd.DataFrame,
-                   cover: np.ndarray, committed: list[int]) -> None:
+                   cover: np.ndarray, committed: list[int],
+                   settings: NetworkSettings = NORTHVALE) -> None:
     ids = list(terms.index)
     hist_mean = demand[:, :n_hist].mean(axis=1)
     print(f"written {out}")
     print(f"terminals {len(terms)}, depots {terms['depot'].nunique()}, history "
           f"{dates[0]:%Y-%m-%d} … {dates[n_hist - 1]:%Y-%m-%d} ({n_hist} days), first planning "
-          f"day {START_DATE:%Y-%m-%d} ({WEEKDAYS[START_DATE.weekday()]})")
+          f"day {settings.start_date:%Y-%m-%d} ({WEEKDAYS[settings.start_date.weekday()]})")
     print(f"mean daily demand per terminal: min {hist_mean.min():,.0f}, median "
           f"{np.median(hist_mean):,.0f}, max {hist_mean.max():,.0f} EUR")
     counts = dispense["status"].value_counts()
@@ -623,8 +927,8 @@ def _print_figures(out: Path, terms: pd.DataFrame, routine: pd.DataFrame,
 
     last_year = demand[:, n_hist - 364:n_hist].sum(axis=1) / 52
     fortnight = demand[:, n_hist:n_hist + 14].sum(axis=1) / 2
-    typical = crew_check(terms, pd.Series(last_year, index=ids))
-    planning = crew_check(terms, pd.Series(fortnight, index=ids))
+    typical = crew_check(terms, pd.Series(last_year, index=ids), settings)
+    planning = crew_check(terms, pd.Series(fortnight, index=ids), settings)
     table = typical.rename(columns={"need": "need_typical"})
     table["need_planning"] = planning["need"].to_numpy()
     routine_days = terms[["depot"]].join(routine["legacy_days"])
@@ -645,5 +949,14 @@ def _print_figures(out: Path, terms: pd.DataFrame, routine: pd.DataFrame,
               f"{part['crews'].sum()}")
 
 
+def _cli() -> None:
+    parser = argparse.ArgumentParser(description="Write an invented demo network.")
+    parser.add_argument("folder", nargs="?", help="output folder (default: the network's own)")
+    parser.add_argument("--network", default="northvale", choices=sorted(NETWORKS),
+                        help="which network of the family (default: northvale)")
+    args = parser.parse_args()
+    main(args.folder, settings=NETWORKS[args.network])
+
+
 if __name__ == "__main__":
-    main(sys.argv[1] if len(sys.argv) > 1 else None)
+    _cli()
