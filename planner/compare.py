@@ -476,8 +476,9 @@ def _interval(diff: np.ndarray) -> tuple[float, float, float]:
 def plan_is_feasible(problem, visits: np.ndarray, loads: np.ndarray) -> bool:
     """Whether a plan keeps the problem's rules: allowed days, committed visits and loads,
     whole bundles within the limit, crew limits, and the service target as the solvers apply
-    it (:func:`planner.optimize.problem.dry_path_allowance`)."""
-    from planner.optimize.problem import dry_path_allowance, evaluate_plan
+    it (a limit per visit cycle, :func:`planner.optimize.problem.service_rule`)."""
+    from planner.costs import cycle_dry_counts
+    from planner.optimize.problem import evaluate_plan, service_rule
 
     visits = np.asarray(visits, bool)
     if visits.shape != problem.allowed.shape or (visits & ~problem.allowed).any():
@@ -497,9 +498,8 @@ def plan_is_feasible(problem, visits: np.ndarray, loads: np.ndarray) -> bool:
     np.add.at(used, problem.depot_of, visits.astype(int))
     if (used > problem.crew_limit).any():
         return False
-    allowance, _ = dry_path_allowance(problem)
-    dry = evaluate_plan(problem, visits, loads).dry_paths(problem.horizon_days).sum(axis=1)
-    return bool((dry <= allowance).all())
+    counts = cycle_dry_counts(evaluate_plan(problem, visits, loads), visits)
+    return bool((service_rule(problem).excess(visits, counts) == 0).all())
 
 
 def compare_scenario(scenario, variants: list[Variant], *, options=None, clean=None,

@@ -189,6 +189,60 @@ class Ledger:
         return out
 
 
+def cycle_ends(visits: np.ndarray) -> np.ndarray:
+    """``[T, D]`` for every day that starts a cycle, the day its cycle ends (exclusive: the
+    next visit, or ``D``); ``-1`` on other days.
+
+    A cycle starts on every visit day; the start balance's cycle starts on day 0 when there is
+    no visit that day (and is empty otherwise).
+    """
+    visits = np.asarray(visits, dtype=bool)
+    t_count, d_count = visits.shape
+    starts = visits.copy()
+    starts[:, 0] = True
+    out = np.full((t_count, d_count), -1)
+    nxt = np.full(t_count, d_count)
+    for d in range(d_count - 1, -1, -1):
+        out[:, d] = np.where(starts[:, d], nxt, -1)
+        nxt = np.where(visits[:, d], d, nxt)
+    return out
+
+
+def cycle_dry_counts(ledger: Ledger, visits: np.ndarray) -> np.ndarray:
+    """``[T, D]`` paths with at least one dry day in the cycle that starts on each day (the
+    visit's cycle on a visit day, the start balance's cycle on day 0 without a visit; see
+    :func:`cycle_ends`); ``-1`` on days that start no cycle.
+
+    This is the count behind the service target (a cycle service level): the share of paths
+    on which the machine runs dry before the next visit.
+    """
+    visits = np.asarray(visits, dtype=bool)
+    ends = cycle_ends(visits)
+    t_count, p_count, d_count = ledger.balance_open.shape
+    out = np.full((t_count, d_count), -1, dtype=np.int64)
+    step = max(1, REDUCE_BLOCK // max(p_count * d_count, 1))
+    for i in range(0, t_count, step):
+        block = slice(i, i + step)
+        dry = ledger.demand[block] > ledger.balance_open[block]
+        before = np.zeros(dry.shape[:2] + (d_count + 1,), dtype=np.int32)
+        np.cumsum(dry, axis=2, out=before[:, :, 1:])          # dry days before each day
+        e = ends[block]
+        s_idx = np.broadcast_to(np.arange(d_count), e.shape)
+        e_idx = np.where(e >= 0, e, s_idx)
+        inside = (np.take_along_axis(before, e_idx[:, None, :].repeat(p_count, 1), axis=2)
+                  - before[:, :, :d_count]) > 0
+        counts = inside.sum(axis=1)
+        out[block] = np.where(e >= 0, counts, -1)
+    return out
+
+
+def worst_cycle_dry(ledger: Ledger, visits: np.ndarray) -> np.ndarray:
+    """``[T]`` each terminal's cycle dry risk: the largest share of paths that run dry before
+    the next visit, over the cycles of the planned window (:func:`cycle_dry_counts`)."""
+    counts = cycle_dry_counts(ledger, visits)
+    return counts.max(axis=1, initial=0) / ledger.balance_open.shape[1]
+
+
 def simulate(visits: np.ndarray, loads: np.ndarray, start_balance: np.ndarray,
              demand: np.ndarray, limit: np.ndarray, visit_fee: np.ndarray, rates: CostRates,
              mode: str) -> Ledger:

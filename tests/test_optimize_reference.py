@@ -23,7 +23,9 @@ from planner.costs import CostRates, simulate
 import planner.optimize as optimize
 from planner.optimize import topup
 from planner.optimize.monolithic import solve_monolithic
-from planner.optimize.problem import PlanningProblem, dry_path_allowance, evaluate_plan
+from planner.costs import cycle_dry_counts
+from plain import meets_target
+from planner.optimize.problem import PlanningProblem, evaluate_plan, service_rule
 from planner.optimize.synthetic import crew_feasible_optimum
 
 REL = 1e-6          # agreement asked of the decomposition and the reference model
@@ -121,7 +123,7 @@ def _terminal_plans(problem: PlanningProblem, t: int):
 def brute_force(problem: PlanningProblem) -> float:
     """The optimum by enumeration (tiny instances only: ~10⁴ plans per terminal)."""
     t_count, p_count, d_count = problem.shape
-    allowance, _ = dry_path_allowance(problem)
+    rule = service_rule(problem)
     best_by_pattern = []     # per terminal: {visit pattern: least expected cost}
     for t in range(t_count):
         visits, loads = _terminal_plans(problem, t)
@@ -132,7 +134,7 @@ def brute_force(problem: PlanningProblem) -> float:
                           np.broadcast_to(problem.visit_fee[t], (m, d_count)),
                           problem.rates, problem.mode)
         cost = ledger.expected_cost()
-        ok = ledger.dry_paths(problem.horizon_days).sum(axis=1) <= allowance[t]
+        ok = rule.excess(visits, cycle_dry_counts(ledger, visits), np.full(m, t)) == 0
         best: dict[tuple, float] = {}
         for pattern, c in zip(map(tuple, visits[ok]), cost[ok]):
             best[pattern] = min(best.get(pattern, math.inf), c)
@@ -150,8 +152,7 @@ def check_monolithic(problem: PlanningProblem):
     assert status == "optimal"
     ledger = evaluate_plan(problem, visits, loads)
     assert objective == pytest.approx(ledger.expected_cost().sum(), rel=1e-9)
-    allowance, _ = dry_path_allowance(problem)
-    assert (ledger.dry_paths(problem.horizon_days).sum(axis=1) <= allowance).all()
+    assert meets_target(problem, visits, ledger)
     return visits, loads, objective
 
 
@@ -159,9 +160,7 @@ def check_same_optimum(problem: PlanningProblem):
     """solve_plan's objective equals the monolithic optimum; returns both results."""
     _, _, reference = check_monolithic(problem)
     result = optimize.solve_plan(problem, time_limit_s=60)
-    allowance, _ = dry_path_allowance(problem)
-    dry_paths = result.ledger.dry_paths(problem.horizon_days).sum(axis=1)
-    assert (dry_paths <= allowance).all()
+    assert meets_target(problem, result.visits, result.ledger)
     assert result.objective == pytest.approx(reference, rel=REL), (
         f"solve_plan {result.objective:.6f} ({result.status}) vs monolithic {reference:.6f}")
     return result, reference

@@ -10,8 +10,8 @@ visit on day ``a`` loading level ``k`` (``L = k · bundle``) and ends the day be
 - handling   ``h · L`` on the load and ``h · E[(L − C(a, b − 1))⁺]`` on the residual returned at
   ``b`` (none when ``b = D``)
 
-and the cycle has a dry day within the horizon on path ``p`` iff ``C_p(a, e) > L`` with
-``e = min(b, horizon) − 1`` (``C`` never decreases). The cycle before the first visit starts with
+and the cycle has a dry day on path ``p`` iff ``C_p(a, b − 1) > L`` (``C`` never decreases):
+the service target counts these paths per cycle (:class:`planner.optimize.problem.ServiceRule`). The cycle before the first visit starts with
 the start balance on day 0 and pays no load handling; a first visit on day 0 returns the whole
 start balance.
 
@@ -22,9 +22,11 @@ units is summed exactly; ties ``C = L`` count as not dry, as in the accounting.
 
 Of the levels of a cycle only the *candidates* are kept: a level is dominated when a higher
 level costs no more (a higher level's dry set is never larger) or when a lower level with the
-same dry set costs no more; and levels whose own dry set exceeds the terminal's allowance of
-dry paths can never be part of a plan that meets the service target. What remains is a short
-list per cycle, cheapest first (costs rise and dry sets shrink along it).
+same dry set costs no more; and levels whose dry count exceeds the cycle's allowance can never
+be part of a plan that meets the service target (with soft targets they stay, priced per dry
+path above the allowance). What remains is a short list per cycle, cheapest first (costs rise
+and dry counts fall along it). As the target is a limit per cycle, the cheapest path through
+the days over these lists is the terminal's exact optimum.
 """
 from __future__ import annotations
 
@@ -32,7 +34,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from planner.optimize.problem import PlanningProblem
+from planner.optimize.problem import PlanningProblem, ServiceRule
 
 CHUNK = 48          # terminals per block: keeps the [terminal, path, day] work in cache
 
@@ -43,14 +45,17 @@ class Candidates:
     in ``0 … D``, candidate ``c``; cheapest first, padded with ``cost = inf``).
 
     - ``cost`` ``[T, D, D + 1, C]`` expected cycle cost without the visit fee.
-    - ``dry`` ``[T, D, D + 1, C]`` paths with a dry day in the horizon part of the cycle.
+      With soft targets it includes ``soft_penalty`` per dry path above the allowance.
+    - ``dry`` ``[T, D, D + 1, C]`` paths with a dry day in the cycle; ``excess`` the dry paths
+      above the cycle's allowance (0 unless targets are soft).
     - ``level`` ``[T, D, D + 1, C]`` bundles loaded (−1 in padding).
     - ``initial`` ``[T, D + 1]`` expected cost from day 0 until the first visit on ``b``;
-      ``initial_dry`` ``[T, D + 1]`` paths dry within the horizon before it.
+      ``initial_dry`` ``[T, D + 1]`` paths dry before it.
     """
 
     cost: np.ndarray
     dry: np.ndarray
+    excess: np.ndarray
     level: np.ndarray
     initial: np.ndarray
     initial_dry: np.ndarray
@@ -65,38 +70,40 @@ class Candidates:
         return self.level[..., 0]
 
 
-def cycle_candidates(problem: PlanningProblem, allowance: np.ndarray | None,
-                     arc_ok: np.ndarray) -> Candidates:
+def cycle_candidates(problem: PlanningProblem, rule: ServiceRule, arc_ok: np.ndarray,
+                     soft_penalty: float | None = None) -> Candidates:
     """Candidate levels of every cycle of every terminal (swap accounting; module text).
 
-    ``allowance`` ``[T]`` dry paths a terminal may have within the horizon (``None``: no
-    limit on a cycle's own dry set); ``arc_ok`` ``[T, D, D + 1]`` cycles that may occur.
+    ``rule``: the dry paths each cycle may have; ``arc_ok`` ``[T, D, D + 1]`` cycles that may
+    occur; ``soft_penalty``: price per dry path above the allowance instead of a hard limit.
     """
     t_count, p_count, d_count = problem.demand.shape
     bundles = np.rint(problem.limit / problem.bundle).astype(int)
     order = np.argsort(bundles, kind="stable")
     blocks = [order[i:i + CHUNK] for i in range(0, t_count, CHUNK)]
-    parts = [_block_candidates(problem, idx, allowance, arc_ok) for idx in blocks]
+    parts = [_block_candidates(problem, idx, rule, arc_ok, soft_penalty) for idx in blocks]
     width = max(part[0].shape[3] for part in parts) if parts else 1
-    cost = np.full((t_count, d_count, d_count + 1, width), np.inf)
-    dry = np.zeros((t_count, d_count, d_count + 1, width), dtype=np.int32)
-    level = np.full((t_count, d_count, d_count + 1, width), -1, dtype=np.int32)
-    for idx, (c, n, k) in zip(blocks, parts):
+    shape = (t_count, d_count, d_count + 1, width)
+    cost = np.full(shape, np.inf)
+    dry = np.zeros(shape, dtype=np.int32)
+    excess = np.zeros(shape, dtype=np.int32)
+    level = np.full(shape, -1, dtype=np.int32)
+    for idx, (c, n, x, k) in zip(blocks, parts):
         w = c.shape[3]
         cost[idx, :, :, :w] = c
         dry[idx, :, :, :w] = n
+        excess[idx, :, :, :w] = x
         level[idx, :, :, :w] = k
     initial, initial_dry = initial_cycles(problem)
-    return Candidates(cost=cost, dry=dry, level=level, initial=initial,
+    return Candidates(cost=cost, dry=dry, excess=excess, level=level, initial=initial,
                       initial_dry=initial_dry)
 
 
-def _block_candidates(problem: PlanningProblem, idx: np.ndarray,
-                      allowance: np.ndarray | None, arc_ok: np.ndarray
-                      ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def _block_candidates(problem: PlanningProblem, idx: np.ndarray, rule: ServiceRule,
+                      arc_ok: np.ndarray, soft_penalty: float | None
+                      ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     demand = problem.demand[idx]
     t_count, p_count, d_count = demand.shape
-    horizon = problem.horizon_days
     rates = problem.rates
     h = rates.handling_per_1000 / 1000.0
     s = rates.shortfall_penalty_per_1000 / 1000.0
@@ -110,8 +117,6 @@ def _block_candidates(problem: PlanningProblem, idx: np.ndarray,
     fixed = problem.fixed_load[idx]
     fixed_level = np.where(np.isnan(fixed), -1,
                            np.rint(np.nan_to_num(fixed) / bundle_size[:, None])).astype(int)
-    limit = (np.full(t_count, np.iinfo(np.int32).max) if allowance is None
-             else allowance[idx])[:, None, None]
     ok_arc = arc_ok[idx]
 
     # cumulative demand before each day, [terminal, day, path]: a day's paths are contiguous
@@ -131,9 +136,14 @@ def _block_candidates(problem: PlanningProblem, idx: np.ndarray,
     width = 1
     out: list[tuple[int, np.ndarray, np.ndarray, np.ndarray]] = []
     for a in range(d_count):
-        span = _useful_span(prefix, a, horizon, top, limit)
+        ends = np.arange(a + 1, d_count + 1)                          # next visit b per j
+        limit = rule.allowance(np.full((t_count, ends.size), a + 1),
+                               np.broadcast_to(ends, (t_count, ends.size)), idx)  # [T, J]
+        span = (d_count - a if soft_penalty is not None else
+                _useful_span(prefix, a, top, limit, rule.shortest_end[idx, a + 1]))
         if span == 0:
             continue
+        ends, limit = ends[:span], limit[:, :span, None]
         shape3 = (t_count, span, p_count)
         n = t_count * span * p_count
         cum = cum_buf[:n].reshape(shape3)                             # C(a, a + j) per path
@@ -172,43 +182,53 @@ def _block_candidates(problem: PlanningProblem, idx: np.ndarray,
         cum_held = np.cumsum(held, axis=1)
         cum_dry = np.cumsum(dry_days, axis=1) / p_count
         short = held - load + cum.mean(axis=2)[:, :, None]            # E[(C − L)⁺]
-        ends = np.arange(a + 1, a + 1 + span)                         # next visit b per j
         ends_in_plan = (ends < d_count)[None, :, None]
         cost = (h * load + rates.carry_rate_daily * cum_held + rates.dry_day_penalty * cum_dry
                 + s * short + h * held * ends_in_plan)                # [T, J, N]
-        last = np.minimum(ends, horizon) - 1 - a                      # e − a per b
-        n_dry = np.where((last >= 0)[None, :, None],
-                         above[:, np.maximum(last, 0), :], 0).astype(np.int64)
+        n_dry = above.astype(np.int64)                                # C(a, b − 1) > L
 
         level_ok = valid & ((fixed_level[:, a] < 0)[:, None]
                             | (k[None, :] == fixed_level[:, a][:, None]))
-        usable = level_ok[:, None, :] & ok_arc[:, a, a + 1:a + 1 + span, None] & (n_dry <= limit)
+        usable = level_ok[:, None, :] & ok_arc[:, a, a + 1:a + 1 + span, None]
+        over = np.maximum(n_dry - limit, 0)
+        if soft_penalty is None:
+            usable &= over == 0
+        else:
+            cost = cost + soft_penalty * over
         cost = np.where(usable, cost, np.inf)
         c, n, lv = _non_dominated(cost, n_dry)
+        x = np.where(lv >= 0, np.maximum(n - limit, 0), 0)
         width = max(width, c.shape[2])
-        out.append((a, c, n, lv))
+        out.append((a, c, n, x, lv))
 
-    cost_out = np.full((t_count, d_count, d_count + 1, width), np.inf)
-    dry_out = np.zeros((t_count, d_count, d_count + 1, width), dtype=np.int32)
-    level_out = np.full((t_count, d_count, d_count + 1, width), -1, dtype=np.int32)
-    for a, c, n, lv in out:
+    shape = (t_count, d_count, d_count + 1, width)
+    cost_out = np.full(shape, np.inf)
+    dry_out = np.zeros(shape, dtype=np.int32)
+    excess_out = np.zeros(shape, dtype=np.int32)
+    level_out = np.full(shape, -1, dtype=np.int32)
+    for a, c, n, x, lv in out:
         w, span = c.shape[2], c.shape[1]
         cost_out[:, a, a + 1:a + 1 + span, :w] = c
         dry_out[:, a, a + 1:a + 1 + span, :w] = n
+        excess_out[:, a, a + 1:a + 1 + span, :w] = x
         level_out[:, a, a + 1:a + 1 + span, :w] = lv
-    return cost_out, dry_out, level_out
+    return cost_out, dry_out, excess_out, level_out
 
 
-def _useful_span(prefix: np.ndarray, a: int, horizon: int, top: np.ndarray,
-                 limit: np.ndarray) -> int:
-    """Days after ``a`` worth pricing: a cycle from ``a`` whose horizon part leaves more than
-    the allowance of paths dry even with a full load is impossible, and so is every longer one
-    (cumulative demand never falls). Returns the longest span any terminal of the block can use."""
+def _useful_span(prefix: np.ndarray, a: int, top: np.ndarray, limit: np.ndarray,
+                 shortest: np.ndarray) -> int:
+    """Days after ``a`` worth pricing: a cycle from ``a`` that leaves more than its allowance
+    of paths dry even with a full load is impossible, and so is every longer one (cumulative
+    demand never falls; only the shortest cycle from ``a`` may keep its unavoidable risk, and
+    its allowance says so; ends before it are no cycles at all). ``limit`` ``[T, J]`` the
+    allowance per next visit, ``shortest`` ``[T]`` the shortest cycle's end. Returns the
+    longest span any terminal of the block can use."""
     d_count = prefix.shape[1] - 1
-    if a >= horizon or np.all(limit >= prefix.shape[2]):
+    if np.all(limit >= prefix.shape[2]):
         return d_count - a
-    cum = prefix[:, a + 1:horizon + 1, :] - prefix[:, a:a + 1, :]   # [T, H − a, P]
-    over = (cum > top).sum(axis=2) > limit[:, :, 0]                 # [T, H − a]
+    cum = prefix[:, a + 1:, :] - prefix[:, a:a + 1, :]               # [T, D − a, P]
+    over = (cum > top).sum(axis=2) > limit                            # [T, D − a]
+    over &= np.arange(a + 1, d_count + 1)[None, :] >= shortest[:, None]
     first = np.where(over.any(axis=1), over.argmax(axis=1), d_count - a)
     # a cycle may end on the first impossible day's visit: spans up to `first`
     return int(min(first.max(), d_count - a))
@@ -258,7 +278,7 @@ def _non_dominated(cost: np.ndarray, n_dry: np.ndarray
 
 def initial_cycles(problem: PlanningProblem) -> tuple[np.ndarray, np.ndarray]:
     """``(cost [T, D + 1], dry [T, D + 1])`` from day 0 on the start balance until a first
-    visit on each day ``b`` (0 … D); ``dry`` counts paths dry within the horizon."""
+    visit on each day ``b`` (0 … D); ``dry`` counts paths dry before that visit."""
     demand = problem.demand
     t_count, p_count, d_count = demand.shape
     rates = problem.rates
@@ -276,6 +296,5 @@ def initial_cycles(problem: PlanningProblem) -> tuple[np.ndarray, np.ndarray]:
                    + rates.dry_day_penalty * np.cumsum(dry_days, axis=1) + s * short
                    + h * held * ends_in_plan[None, :])
     dry = np.zeros((t_count, d_count + 1), dtype=np.int32)
-    last = np.minimum(np.arange(1, d_count + 1), problem.horizon_days) - 1
-    dry[:, 1:] = (cum[:, :, last] > start).sum(axis=1)
+    dry[:, 1:] = (cum > start).sum(axis=1)
     return cost, dry

@@ -20,9 +20,11 @@ of `planner.costs` exactly:
               + (1/P) Σ_t,p,d [handling/1000 · returned + dry_day_penalty · dry
                                + shortfall/1000 · (demand − dispensed) + carry_rate · end_balance]
 
-    subject to  Σ_p path_dry[t,p] ≤ allowance[t]   (floor(max_dry_probability · P + 1e-9), or the
-                                                    least reachable: `dry_path_allowance`),
-                path_dry[t,p] ≥ dry[t,p,d] for d < horizon_days,
+    subject to  per cycle start s (the start balance, or a visit on day a):
+                cycle_dry[t,p,s] ≥ dry[t,p,d] − (visits in (s, d]) − (1 − visit[t,s])  (d ≥ s),
+                Σ_p cycle_dry[t,p,s] ≤ allowed_dry[t] + extra[t,s] · visit[t, shortest end]
+                (the cycle service level of `planner.optimize.problem.ServiceRule`: a cycle
+                that ends on the next possible visit keeps its unavoidable risk),
                 Σ_{t in depot k} visit[t,d] ≤ crew_limit[k,d],
                 committed visits kept, visits only on allowed days, balance after a visit ≤ limit.
 
@@ -40,7 +42,7 @@ from dataclasses import dataclass
 import numpy as np
 import pulp
 
-from planner.optimize.problem import PlanningProblem, dry_path_allowance
+from planner.optimize.problem import PlanningProblem, service_rule
 
 # The optimality gap must be closed (HiGHS' default mip_rel_gap is 1e-4) for this model to be a
 # yardstick at 1e-6. Feasibility tolerances stay at their defaults: tightening them to 1e-9 with
@@ -62,7 +64,8 @@ class MonolithicModel:
     dispensed: dict      # (t, p, d)
     dry: dict            # (t, p, d) -> binary: demand > balance_open
     end_balance: dict    # (t, p, d)
-    path_dry: dict       # (t, p) -> binary: ≥ 1 dry day within the horizon
+    path_dry: dict       # (t, p, s) -> binary: ≥ 1 dry day in the cycle starting at s (−1 =
+                         # the start balance)
 
 
 def _big_m_balance(problem: PlanningProblem) -> np.ndarray:
@@ -185,25 +188,38 @@ def define_dispensing(model: MonolithicModel, problem: PlanningProblem) -> None:
 
 
 def define_service_target(model: MonolithicModel, problem: PlanningProblem) -> None:
-    """path_dry[t,p] ≥ dry[t,p,d] for d < horizon_days; Σ_p path_dry[t,p] ≤ allowance[t].
-
-    allowance = floor(max_dry_probability · P + 1e-9), raised to the least number of dry paths
-    the terminal can reach on its own when the target cannot be met (the shared rule,
-    `planner.optimize.problem.dry_path_allowance`).
-    """
+    """The cycle service level (module text): per cycle start ``s``, at most the allowance of
+    paths have a dry day before the next visit; the rule is the shared one
+    (:func:`planner.optimize.problem.service_rule`)."""
     T, P, D = problem.demand.shape
-    allowance, _ = dry_path_allowance(problem)
+    rule = service_rule(problem)
+
+    def visit(t: int, d: int):
+        return model.visit[t, d] if d < D else 1
+
     for t in range(T):
-        if allowance[t] >= P:
-            continue
-        for p in range(P):
-            u = model.prob.add_variable(f"path_dry_{t}_{p}", cat=pulp.LpBinary)
-            model.path_dry[t, p] = u
-            for d in range(min(problem.horizon_days, D)):
-                if not isinstance(model.dry[t, p, d], int):
-                    model.prob += u >= model.dry[t, p, d], f"path_dry_{t}_{p}_{d}"
-        model.prob += (pulp.lpSum(model.path_dry[t, p] for p in range(P)) <= int(allowance[t]),
-                       f"service_target_{t}")
+        starts = [-1] + [a for a in range(D) if not isinstance(model.visit[t, a], int)
+                         or model.visit[t, a] == 1]
+        for s in starts:
+            index = s + 1
+            allowed = int(rule.allowed_dry[t])
+            extra = max(int(rule.unavoidable[t, index]) - allowed, 0)
+            if allowed >= P:
+                continue
+            opened = 0 if s < 0 else 1 - visit(t, s)
+            for p in range(P):
+                u = model.prob.add_variable(f"cycle_dry_{t}_{p}_{index}", cat=pulp.LpBinary)
+                model.path_dry[t, p, s] = u
+                later = 0
+                for d in range(max(s, 0), D):
+                    if d > s:
+                        later = later + visit(t, d)
+                    if not (isinstance(model.dry[t, p, d], int) and model.dry[t, p, d] == 0):
+                        model.prob += (u >= model.dry[t, p, d] - later - opened,
+                                       f"cycle_dry_{t}_{p}_{index}_{d}")
+            end = int(rule.shortest_end[t, index])
+            model.prob += (pulp.lpSum(model.path_dry[t, p, s] for p in range(P))
+                           <= allowed + extra * visit(t, end), f"service_target_{t}_{index}")
 
 
 def define_crew_limits(model: MonolithicModel, problem: PlanningProblem) -> None:

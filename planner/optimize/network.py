@@ -9,19 +9,19 @@ worker processes when there are several). Within a depot (Dantzig–Wolfe decomp
   ``Σ_{t, j} visits[t, j, d] · x[t, j] ≤ crew_limit[d]`` (``crew-limit-{depot}-{day}``).
 - Its LP relaxation's duals are Lagrangian prices ``λ[d] ≥ 0`` on the crew rows; each terminal
   then finds its cheapest plan with ``λ[d]`` added to the visit fee of day ``d``
-  (:mod:`planner.optimize.terminal`: a shortest path over the days, and an exact arc MILP when
-  the service target binds). Columns with negative reduced cost join the master.
-- Every exact pricing round gives the Lagrangian bound
+  (:mod:`planner.optimize.terminal`: a shortest path over the days, exact because the service
+  target is a limit per cycle). Columns with negative reduced cost join the master.
+- Every pricing round gives the Lagrangian bound
   ``Σ_t min_plan (cost + λ · visits) − Σ_d λ[d] · crew_limit[d]`` (a lower bound of the
-  coupled optimum for any ``λ ≥ 0``); between exact rounds, heuristic plans that meet the
-  target (:func:`planner.optimize.terminal.target_plans`) generate columns quickly.
+  coupled optimum for any ``λ ≥ 0``).
 - The master as a MILP over all columns gives the plan; ``gap = (objective − bound) /
   objective``. In exact mode (small instances) a fractional master LP is closed too: every
   visit pattern whose reduced cost could still lead to a cheaper integer plan gets its best
-  plan priced exactly (see :func:`_plans_within`), then the master MILP is solved again. When the crews cannot serve every terminal's target together, the targets of
-  that depot become soft (an extra dry path costs more than anything else) and the notes say so.
+  plan priced exactly (see :func:`_plans_within`), then the master MILP is solved again. When
+  the crews cannot serve every terminal's target together, the targets of that depot become
+  soft (an extra dry path costs more than anything else) and the notes say so.
 
-The small models (per-terminal MILPs, master LPs) go to HiGHS through ``highspy`` directly, the
+The master LPs go to HiGHS through ``highspy`` directly, the
 master MILP through PuLP (``pulp.HiGHS``; CBC when HiGHS is not installed or ``solver="cbc"``).
 """
 from __future__ import annotations
@@ -37,11 +37,12 @@ from dataclasses import dataclass, field, replace
 import numpy as np
 
 from planner.optimize import milp, terminal
-from planner.optimize.problem import (PlanningProblem, PlanResult, next_visits,
-                                      result_from_plan, service_limits)
+from planner.optimize.problem import (PlanningProblem, PlanResult, ServiceRule,
+                                      result_from_plan, service_rule)
 
 GAP_TOLERANCE = 0.005
 MIN_ROUNDS = 4
+MAX_ROUNDS = 500      # pricing rounds per depot (a work limit; convergence comes first)
 
 
 @dataclass
@@ -182,16 +183,16 @@ def _soft_penalty(problem: PlanningProblem) -> float:
     return 10.0 * worst + 1.0
 
 
-def solve_depot(problem: PlanningProblem, allowance: np.ndarray, depot: int, *,
+def solve_depot(problem: PlanningProblem, rule: ServiceRule, depot: int, *,
                 deadline: float, solver: str = "highs", gap_tolerance: float = GAP_TOLERANCE,
                 exact: bool = False, soft: bool = False,
-                seed_pool: ColumnPool | None = None,
-                batch: terminal.TerminalBatch | None = None) -> DepotResult:
+                seed_pool: ColumnPool | None = None) -> DepotResult:
     """Plan the terminals of one depot (``problem`` holds only them) under its crew limits.
 
-    ``exact``: price every terminal exactly in every round and prove optimality to ~1e-9
-    (small instances); otherwise heuristic rounds between exact ones, stopping at
+    ``exact``: prove optimality to ~1e-9 (small instances); otherwise stop at
     ``gap_tolerance``. ``soft``: targets may be exceeded at a price (see the module text).
+    ``deadline`` (``time.perf_counter()``) is an emergency stop only: the rounds end by their
+    own work limits, so the plan does not depend on the machine's speed.
     """
     started = time.perf_counter()
     log: list[str] = []
@@ -200,11 +201,7 @@ def solve_depot(problem: PlanningProblem, allowance: np.ndarray, depot: int, *,
     crew = np.maximum(problem.crew_limit[depot], problem.committed.sum(axis=0)).astype(float)
     fee = problem.visit_fee
     penalty = _soft_penalty(problem) if soft else None
-    # soft targets are a fallback for crews too few: heuristic columns, exact only when small
-    if batch is None:
-        batch = terminal.prepare_batch(problem, allowance, soft_penalty=penalty)
-    else:      # out of time: keep the cycles already priced, price the excess dry paths
-        batch = replace(batch, soft_penalty=penalty)
+    batch = terminal.prepare_batch(problem, rule, soft_penalty=penalty)
     rows = np.arange(t_count)
     tight = 1e-9 if exact else gap_tolerance / 10.0
     log.append(f"{name}: {t_count} terminals, cycles priced in "
@@ -224,17 +221,14 @@ def solve_depot(problem: PlanningProblem, allowance: np.ndarray, depot: int, *,
     lam = np.zeros(d_count)
     mu = np.full(t_count, np.inf)
     best_bound = -math.inf
-    penalty_range = None
-    force_exact = exact
     slack = np.zeros(d_count)
     converged = False
-    for iteration in range(500):
+    value_lp = math.inf
+    for iteration in range(MAX_ROUNDS):
         price = fee + lam[None, :]
-        plans, lower, exact_done, penalty_range = _price(
-            batch, rows, price, exact=force_exact and time.perf_counter() < deadline,
-            solver=solver, tight=tight, penalty_range=penalty_range, deadline=deadline)
-        # a Lagrangian bound for any λ ≥ 0 (weaker while `lower` is only the relaxation)
-        best_bound = max(best_bound, float(lower.sum() - lam @ crew))
+        plans, _ = terminal.cheapest_plans(batch, price, rows)
+        # a Lagrangian bound for any λ ≥ 0
+        best_bound = max(best_bound, float(plans.value.sum() - lam @ crew))
         added = 0
         for t in rows:
             if np.isfinite(plans.value[t]) and plans.value[t] < mu[t] - 1e-9 * max(
@@ -243,29 +237,22 @@ def solve_depot(problem: PlanningProblem, allowance: np.ndarray, depot: int, *,
                 added += pool.add(t, plans.visits[t], plans.levels[t], cost)
         value_lp, mu, lam, slack = solve_master_lp(pool, t_count, name, crew, slack_cost,
                                                    solver)
-        log.append(f"{name}: round {iteration}{' (exact)' if exact_done else ''}: LP "
-                   f"{value_lp:,.2f}, columns {len(pool.cost)} (+{added}), bound "
-                   f"{best_bound:,.2f}, {time.perf_counter() - started:.1f} s")
-        proved = exact_done and value_lp - best_bound <= tight * max(abs(value_lp), 1e-9)
-        converged = proved or (exact_done and added == 0)
+        log.append(f"{name}: round {iteration}: LP {value_lp:,.2f}, columns "
+                   f"{len(pool.cost)} (+{added}), bound {best_bound:,.2f}, "
+                   f"{time.perf_counter() - started:.1f} s")
+        converged = added == 0 or value_lp - best_bound <= tight * max(abs(value_lp), 1e-9)
         if converged:
             break
-        # a few cheap rounds even when time is short: the first columns rarely fit the crews
-        if time.perf_counter() > deadline and (iteration >= MIN_ROUNDS
-                                              or slack.max(initial=0.0) <= 1e-6):
-            log.append(f"{name}: time limit reached in the pricing rounds")
+        if time.perf_counter() > deadline and iteration >= MIN_ROUNDS:
+            log.append(f"{name}: emergency time limit reached in the pricing rounds")
             break
-        if soft and not exact and added == 0:
-            break
-        # heuristic rounds until they find nothing new, then an exact round
-        force_exact = exact or (not exact_done and added == 0)
 
     if not soft and converged and slack.max(initial=0.0) > 1e-6:
         # proven: even the LP over every plan needs more crews than there are
         log.append(f"{name}: the crews cannot serve every terminal's service target; the "
                    "targets become soft")
-        return _soft_retry(problem, allowance, depot, deadline, solver, gap_tolerance, exact,
-                           log, pool)
+        return _soft_retry(problem, rule, depot, deadline, solver, gap_tolerance, exact, log,
+                           pool)
 
     remaining = max(deadline - time.perf_counter(), 1.0)
     status, chosen, objective, mip_bound = solve_master_mip(
@@ -275,13 +262,13 @@ def solve_depot(problem: PlanningProblem, allowance: np.ndarray, depot: int, *,
             raise RuntimeError(f"{name}: no plan respects the crew limits")  # cannot happen
         log.append(f"{name}: no combination of plans found so far respects the crews; the "
                    "targets become soft")
-        return _soft_retry(problem, allowance, depot, deadline, solver, gap_tolerance, exact,
-                           log, pool, None if converged else batch)
+        return _soft_retry(problem, rule, depot, deadline, solver, gap_tolerance, exact, log,
+                           pool)
     bound = best_bound if best_bound > -math.inf else -math.inf
     if exact and converged and objective - value_lp > 1e-9 * max(abs(objective), 1.0):
         # the LP optimum is fractional: add every plan whose reduced cost could still lead to
         # a better integer plan, then solve the master again (proven when all could be listed)
-        listed, added = _plans_within(batch, pool, fee, mu, lam, objective - value_lp, solver)
+        listed, added = _plans_within(batch, pool, fee, mu, lam, objective - value_lp)
         log.append(f"{name}: integer gap closed by listing plans: +{added} columns"
                    f"{'' if listed else ' (too many patterns to list them all)'}")
         status, chosen, objective, mip_bound = solve_master_mip(
@@ -302,18 +289,17 @@ def solve_depot(problem: PlanningProblem, allowance: np.ndarray, depot: int, *,
 
 
 def _plans_within(batch: terminal.TerminalBatch, pool: ColumnPool, fee: np.ndarray,
-                  mu: np.ndarray, lam: np.ndarray, threshold: float, solver: str,
+                  mu: np.ndarray, lam: np.ndarray, threshold: float,
                   most_patterns: int = 4096) -> tuple[bool, int]:
     """Add, per terminal, the best plan of every visit pattern whose reduced cost at the final
     LP prices may be at most ``threshold``.
 
     At convergence every plan has reduced cost ``c + λ·v − μ ≥ 0``, and an integer plan of the
     network costs at least the LP value plus the reduced costs of its columns; so a plan that
-    could beat the incumbent has reduced cost below ``threshold = incumbent − LP``. Patterns
-    are screened by their relaxed cost (a lower bound) and priced exactly when they pass.
-    Returns ``(every pattern could be listed, columns added)``."""
+    could beat the incumbent has reduced cost below ``threshold = incumbent − LP``. Returns
+    ``(every pattern could be listed, columns added)``."""
     problem = batch.problem
-    t_count, _, d_count = problem.shape
+    t_count = problem.shape[0]
     listed, added = True, 0
     for t in range(t_count):
         free = np.flatnonzero(problem.allowed[t] & ~problem.committed[t])
@@ -325,36 +311,17 @@ def _plans_within(batch: terminal.TerminalBatch, pool: ColumnPool, fee: np.ndarr
                           dtype=bool).reshape(-1, free.size)
         patterns = np.tile(problem.committed[t], (len(choice), 1))
         patterns[:, free] = choice
-        low = _pattern_lower_bounds(batch, t, patterns, price)
+        plans = terminal.pattern_plans(batch, t, patterns, price)
         margin = 1e-9 * max(1.0, abs(threshold), abs(mu[t]))
-        for v in patterns[low - mu[t] <= threshold + margin]:
-            plan, _, status = terminal.exact_plan(batch, t, price, solver=solver,
-                                                  pattern=v, mip_rel_gap=1e-9)
-            if np.isfinite(plan.value[0]):
-                cost = plan.value[0] - lam @ plan.visits[0]
-                added += pool.add(t, plan.visits[0], plan.levels[0], cost)
+        for j in np.flatnonzero(plans.value - mu[t] <= threshold + margin):
+            cost = plans.value[j] - lam @ plans.visits[j]
+            added += pool.add(t, plans.visits[j], plans.levels[j], cost)
     return listed, added
 
 
-def _pattern_lower_bounds(batch: terminal.TerminalBatch, t: int, patterns: np.ndarray,
-                          price: np.ndarray) -> np.ndarray:
-    """``[n]`` relaxed cost (each cycle its cheapest candidate) of visit patterns at prices."""
-    d_count = patterns.shape[1]
-    best = batch.candidates.best_cost[t]
-    nxt = next_visits(patterns)
-    first = np.where(patterns.any(axis=1), patterns.argmax(axis=1), d_count)
-    low = batch.initial_cost[t][first].copy()
-    for a in range(d_count):
-        on = patterns[:, a]
-        low[on] += best[a, nxt[on, a]] + price[a]
-    return low
-
-
-def _soft_retry(problem, allowance, depot, deadline, solver, gap_tolerance, exact, log, pool,
-                batch=None):
-    result = solve_depot(problem, allowance, depot, deadline=deadline, solver=solver,
-                         gap_tolerance=gap_tolerance, exact=exact, soft=True, seed_pool=pool,
-                         batch=batch)
+def _soft_retry(problem, rule, depot, deadline, solver, gap_tolerance, exact, log, pool):
+    result = solve_depot(problem, rule, depot, deadline=deadline, solver=solver,
+                         gap_tolerance=gap_tolerance, exact=exact, soft=True, seed_pool=pool)
     result.log[:0] = log
     return result
 
@@ -362,6 +329,7 @@ def _soft_retry(problem, allowance, depot, deadline, solver, gap_tolerance, exac
 def _committed_only(batch: terminal.TerminalBatch, t: int) -> tuple[np.ndarray, np.ndarray,
                                                                      float]:
     """Terminal ``t``'s plan with its committed visits only, and its cost with soft targets."""
+    from planner.costs import cycle_dry_counts
     from planner.optimize.problem import evaluate_plan
 
     problem = batch.problem
@@ -370,7 +338,8 @@ def _committed_only(batch: terminal.TerminalBatch, t: int) -> tuple[np.ndarray, 
                                       / problem.bundle[t]), -1).astype(int)
     loads = np.where(visits, levels * problem.bundle[t], 0.0)
     ledger = evaluate_plan(problem.subset([t]), visits[None], loads[None])
-    excess = max(0, int(ledger.dry_paths(problem.horizon_days).sum()) - int(batch.allowance[t]))
+    counts = cycle_dry_counts(ledger, visits[None])
+    excess = int(batch.rule.excess(visits[None], counts, np.array([t]))[0])
     return visits, levels, float(ledger.expected_cost()[0]) + excess * batch.soft_penalty
 
 
@@ -378,81 +347,12 @@ def _without_soft_prices(batch, visits, levels, objective, bound):
     """Objective and bound of a soft-target depot in plain expected cost.
 
     With ``E`` the priced excess of dry paths of the plan, any plan with no more excess costs
-    at least ``bound − E``; the sum of the terminals' cheapest plans ignoring crews and targets
-    bounds every plan. The larger of the two is reported."""
-    count = terminal.dry_counts(batch, np.arange(visits.shape[0]),
-                                terminal.Plans(visits, next_visits(visits),
-                                               levels, np.zeros(visits.shape[0])))
-    excess = float(np.maximum(count - batch.allowance, 0).sum() * batch.soft_penalty)
-    free, _ = terminal.relaxed_plans(batch, batch.problem.visit_fee)
-    return objective - excess, max(bound - excess, float(free.value.sum()))
-
-
-
-def _price(batch: terminal.TerminalBatch, rows: np.ndarray, price: np.ndarray, *,
-           exact: bool, solver: str, tight: float, penalty_range, deadline: float):
-    """Price every terminal at day prices ``price`` ``[T, D]``.
-
-    Returns ``(plans, lower [T], exact_done, penalty_range)``: a plan per terminal meeting the
-    target, a lower bound of each terminal's priced optimum (exact when ``exact_done``)."""
-    relaxed, _ = terminal.relaxed_plans(batch, price, rows)
-    lower = relaxed.value.copy()
-    if batch.soft_penalty is None:
-        meets = terminal.dry_counts(batch, rows, relaxed) <= batch.allowance
-    else:
-        meets = np.zeros(rows.size, bool)
-    plans = relaxed
-    binding = np.flatnonzero(~meets)
-    if binding.size and batch.soft_penalty is None:
-        heur, penalty_range = terminal.target_plans(batch, price[binding], rows[binding],
-                                                    penalty_range=_range_of(penalty_range,
-                                                                            binding))
-        plans = terminal.Plans(relaxed.visits.copy(), relaxed.next_visit.copy(),
-                               relaxed.levels.copy(), relaxed.value.copy())
-        plans.put(binding, heur)
-        penalty_range = _store_range(penalty_range, binding, rows.size)
-    elif binding.size:
-        # soft targets: every dry path of a cycle priced as an extra one (never fewer)
-        heur = terminal.penalised_plans(batch, price, rows,
-                                        np.full(rows.size, batch.soft_penalty))
-        plans = _with_excess(batch, rows, heur)
-    if not exact or not binding.size:
-        return plans, lower, exact or not binding.size, penalty_range
-    for i in binding:
-        if time.perf_counter() > deadline:
-            break                     # the rest keep their relaxed bound: weaker, still valid
-        t = rows[i]
-        upper = plans.value[i]
-        plan, bound, status = terminal.exact_plan(
-            batch, t, price[i], upper_bound=upper, solver=solver,
-            time_limit_s=max(1.0, min(30.0, deadline - time.perf_counter())),
-            mip_rel_gap=tight / 4)
-        if np.isfinite(plan.value[0]) and plan.value[0] < upper:
-            plans.put(np.array([i]), plan)
-        lower[i] = max(lower[i], min(bound, plans.value[i]))
-    return plans, lower, True, penalty_range
-
-
-def _range_of(stored, binding):
-    if stored is None:
-        return None
-    low, high = stored
-    return low[binding], high[binding]
-
-
-def _store_range(found, binding, size):
-    low = np.full(size, 1e-2)
-    high = np.full(size, 1e7)
-    low[binding], high[binding] = found
-    return low, high
-
-
-def _with_excess(batch, rows, plans):
-    """Soft targets: add the price of dry paths above the allowance to the plans' values."""
-    count = terminal.dry_counts(batch, rows, plans)
-    excess = np.maximum(count - batch.allowance[rows], 0)
-    return terminal.Plans(plans.visits, plans.next_visit, plans.levels,
-                          plans.value + excess * batch.soft_penalty)
+    at least ``bound − E``."""
+    rows = np.arange(visits.shape[0])
+    from planner.optimize.problem import next_visits
+    plans = terminal.Plans(visits, next_visits(visits), levels, np.zeros(visits.shape[0]))
+    excess = float(terminal.plan_excess(batch, rows, plans).sum() * batch.soft_penalty)
+    return objective - excess, bound - excess
 
 
 # --------------------------------------------------------------------------------------------
@@ -464,20 +364,20 @@ _WORK: dict = {}
 
 
 def depot_task_setup(args, work: dict):
-    """The common start of a depot task: ``(k, deadline, members, sub-problem, allowance,
+    """The common start of a depot task: ``(k, deadline, members, sub-problem, service rule,
     notes)`` from ``(depot, time budget, last moment)`` and the shared work table."""
     k, budget, last = args
     deadline = min(time.perf_counter() + budget, last)
     problem = work["problem"]
     members = np.flatnonzero(problem.depot_of == k)
     sub = problem.subset(members)
-    allowance, _, notes = service_limits(sub)
-    return k, deadline, members, sub, allowance, notes
+    rule = service_rule(sub)
+    return k, deadline, members, sub, rule, rule.notes
 
 
 def _depot_task(args):
-    k, deadline, members, sub, allowance, notes = depot_task_setup(args, _WORK)
-    result = solve_depot(sub, allowance, k, deadline=deadline, solver=_WORK["solver"],
+    k, deadline, members, sub, rule, notes = depot_task_setup(args, _WORK)
+    result = solve_depot(sub, rule, k, deadline=deadline, solver=_WORK["solver"],
                          gap_tolerance=_WORK["gap"], exact=_WORK["exact"])
     return k, members, notes, result
 

@@ -12,11 +12,18 @@ Rules fixed here so that all solvers agree:
   its committed visits; it is True on every committed visit (``fixed_load`` not NaN), which must
   be kept with its load.
 - Loads are whole bundles, ``0 ≤ load ≤ limit``.
-- Service target: at most :func:`dry_path_allowance` paths of a terminal may have a dry day
-  within the horizon (days ``0 … horizon_days − 1``). That is ``floor(max_dry_probability · P +
-  1e-9)``, raised to the least number reachable by the terminal on its own (a visit with a full
-  load on every allowed day; committed loads kept) when the target cannot be met; the result
-  then says why in ``notes``.
+- Service target (a cycle service level, the textbook measure of Silver, Pyke & Thomas,
+  *Inventory and Production Management in Supply Chains*): for every cycle of the planned
+  window — from each visit to the next one, from the start balance to the first visit, and
+  from the last visit to the window's end — at most ``allowed_dry`` of the ``P`` paths run
+  dry. ``allowed_dry = floor(max_dry_probability · P + 1e-9)`` unless the problem carries a
+  calibrated in-sample level per terminal (``dry_allowance``,
+  :mod:`planner.optimize.calibrate`). The horizon decides only what is committed and
+  reported, never what is constrained.
+- A cycle that cannot be made shorter (it ends on the next day a visit is possible) keeps the
+  risk it cannot avoid: its allowance is raised to the dry count of a full load (or the
+  committed load) on that shortest cycle, and the result says why in ``notes``
+  (:func:`service_rule`).
 - The objective is the expected cost over all days (horizon + tail), by
   :func:`planner.costs.simulate`.
 """
@@ -28,7 +35,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
-from planner.costs import CostRates, Ledger, simulate
+from planner.costs import CostRates, Ledger, cycle_dry_counts, cycle_ends, simulate
 
 WEEKDAY_NAMES = ("Mon", "Tue", "Wed", "Thu", "Fri", "Sat", "Sun")
 
@@ -52,7 +59,8 @@ class PlanningProblem:
     crew_limit: np.ndarray          # [K, D] int visits per depot and day
     rates: CostRates
     mode: str                       # "swap" | "topup"
-    max_dry_probability: float      # per terminal, over days [0, horizon_days)
+    max_dry_probability: float      # the target per visit cycle (share of paths)
+    dry_allowance: np.ndarray | None = None   # [T] calibrated in-sample dry paths per cycle
 
     @property
     def shape(self) -> tuple[int, int, int]:
@@ -76,7 +84,8 @@ class PlanningProblem:
             bundle=self.bundle[idx], allowed=self.allowed[idx],
             fixed_load=self.fixed_load[idx], visit_fee=self.visit_fee[idx],
             crew_limit=self.crew_limit, rates=self.rates, mode=self.mode,
-            max_dry_probability=self.max_dry_probability)
+            max_dry_probability=self.max_dry_probability,
+            dry_allowance=None if self.dry_allowance is None else self.dry_allowance[idx])
 
 
 @dataclass(frozen=True)
@@ -88,8 +97,8 @@ class PlanResult:
     lower bound proven, ``gap = (objective − bound) / objective``. ``status`` is ``"optimal"``
     (gap within the tolerance), ``"time_limit"`` (best plan found when time ran out, with its
     gap) or ``"feasible"``. ``notes`` has one text per terminal ("" when the service target is
-    met as asked); ``dry_probability`` ``[T]`` is the share of paths with a dry day within the
-    horizon.
+    met as asked); ``dry_probability`` ``[T]`` is each terminal's worst cycle: the largest
+    share of paths that run dry before the next visit, over the cycles of the planned window.
     """
 
     visits: np.ndarray
@@ -202,7 +211,7 @@ def evaluate_plan(problem: PlanningProblem, visits: np.ndarray, loads: np.ndarra
 
 
 def target_dry_paths(problem: PlanningProblem) -> int:
-    """Paths per terminal allowed a dry day within the horizon by the target as asked."""
+    """Paths per cycle allowed to run dry by the target as asked (before calibration)."""
     return int(math.floor(problem.max_dry_probability * problem.shape[1] + 1e-9))
 
 
@@ -220,48 +229,106 @@ def max_service_plan(problem: PlanningProblem) -> tuple[np.ndarray, np.ndarray]:
     return visits, loads
 
 
-def dry_path_allowance(problem: PlanningProblem) -> tuple[np.ndarray, np.ndarray]:
-    """``(allowance [T] int, least [T] int)``: the paths per terminal that may have a dry day
-    within the horizon, and the least number reachable (by :func:`max_service_plan`).
+@dataclass(frozen=True)
+class ServiceRule:
+    """How many paths each cycle of a terminal may have dry (the service target as counts).
 
-    ``allowance = max(floor(max_dry_probability · P + 1e-9), least)``.
+    Cycles are indexed by their start: ``0`` the start balance's cycle (day 0 until the first
+    visit), ``a + 1`` the cycle of a visit on day ``a``.
+
+    - ``allowed_dry`` ``[T]``: in-sample dry paths per cycle (the target, or the calibrated
+      level of :mod:`planner.optimize.calibrate`).
+    - ``shortest_end`` ``[T, D + 1]``: the end (next possible visit, ``D`` = window's end) of the
+      shortest cycle from each start; ``unavoidable`` ``[T, D + 1]``: its dry paths with a full
+      load (committed loads kept), the least any plan can reach on that cycle.
+    - ``notes`` ``[T]``: why the target cannot be met ("" when it can).
     """
-    allowance, least, _ = service_limits(problem)
-    return allowance, least
+
+    allowed_dry: np.ndarray
+    shortest_end: np.ndarray
+    unavoidable: np.ndarray
+    notes: tuple[str, ...]
+
+    def take(self, rows: np.ndarray) -> "ServiceRule":
+        """The rule of some terminals (indices)."""
+        rows = np.asarray(rows, dtype=int)
+        return ServiceRule(self.allowed_dry[rows], self.shortest_end[rows],
+                           self.unavoidable[rows], tuple(self.notes[i] for i in rows))
+
+    def allowance(self, start: np.ndarray, end: np.ndarray,
+                  rows: np.ndarray | slice = slice(None)) -> np.ndarray:
+        """Dry paths allowed to cycles from ``start`` (index as above, ``[n, …]``) to ``end``
+        for terminals ``rows`` (broadcast against the leading axis)."""
+        short = np.take_along_axis(self.shortest_end[rows], start, axis=1)
+        least = np.take_along_axis(self.unavoidable[rows], start, axis=1)
+        base = self.allowed_dry[rows].reshape((-1,) + (1,) * (np.ndim(start) - 1))
+        return np.where(end == short, np.maximum(base, least), base)
+
+    def excess(self, visits: np.ndarray, counts: np.ndarray,
+               rows: np.ndarray | slice = slice(None)) -> np.ndarray:
+        """``[n]`` dry paths above the allowance, summed over the cycles of plans ``visits``
+        ``[n, D]`` whose cycle dry counts are ``counts`` ``[n, D]``
+        (:func:`planner.costs.cycle_dry_counts`)."""
+        ends = cycle_ends(visits)
+        has = ends >= 0
+        start = np.where(np.asarray(visits, bool), np.arange(visits.shape[1]) + 1, 0)
+        allow = self.allowance(start, np.where(has, ends, 0), rows)
+        return np.where(has, np.maximum(counts - allow, 0), 0).sum(axis=1)
+
+
+def service_rule(problem: PlanningProblem) -> ServiceRule:
+    """The :class:`ServiceRule` of a problem, from one simulation of the
+    :func:`max_service_plan` (whose cycles are exactly the shortest cycle from every start)."""
+    t_count, p_count, d_count = problem.shape
+    visits, loads = max_service_plan(problem)
+    ledger = evaluate_plan(problem, visits, loads)
+    counts = cycle_dry_counts(ledger, visits)
+    ends = cycle_ends(visits)
+    shortest_end = np.full((t_count, d_count + 1), d_count)
+    unavoidable = np.zeros((t_count, d_count + 1), dtype=np.int64)
+    first = np.where(visits.any(axis=1), visits.argmax(axis=1), d_count)
+    shortest_end[:, 0] = first
+    start_cycle = ~visits[:, 0]
+    unavoidable[:, 0] = np.where(start_cycle, counts[:, 0], 0)
+    t_idx, a_idx = np.nonzero(visits)
+    shortest_end[t_idx, a_idx + 1] = ends[t_idx, a_idx]
+    unavoidable[t_idx, a_idx + 1] = counts[t_idx, a_idx]
+    if problem.dry_allowance is not None:
+        allowed = np.asarray(problem.dry_allowance, dtype=np.int64).reshape(t_count)
+    else:
+        allowed = np.full(t_count, target_dry_paths(problem), dtype=np.int64)
+    target = target_dry_paths(problem)
+    notes = []
+    for t in range(t_count):
+        worst = int(unavoidable[t].max(initial=0))
+        if worst <= target:
+            notes.append("")
+            continue
+        j = int(unavoidable[t].argmax())
+        share = worst / p_count
+        head = (f"target {problem.max_dry_probability:.1%} not reachable: at best "
+                f"{share:.1%} of paths run dry in one cycle")
+        notes.append(f"{head}; {_dry_cause(problem, t, visits[t], ledger.dry[t], j)}")
+    return ServiceRule(allowed_dry=allowed, shortest_end=shortest_end,
+                       unavoidable=unavoidable, notes=tuple(notes))
 
 
 def target_notes(problem: PlanningProblem) -> tuple[str, ...]:
     """Per terminal, why the service target cannot be met ("" when it can)."""
-    return service_limits(problem)[2]
+    return service_rule(problem).notes
 
 
-def service_limits(problem: PlanningProblem) -> tuple[np.ndarray, np.ndarray, tuple[str, ...]]:
-    """``(allowance, least, notes)`` of :func:`dry_path_allowance` and :func:`target_notes`
-    from one simulation of the :func:`max_service_plan`."""
-    visits, loads = max_service_plan(problem)
-    ledger = evaluate_plan(problem, visits, loads)
-    horizon = problem.horizon_days
-    paths = problem.shape[1]
-    target = target_dry_paths(problem)
-    dry = ledger.dry[:, :, :horizon]
-    least = dry.any(axis=2).sum(axis=1).astype(int)
-    notes = []
-    for t in range(problem.shape[0]):
-        if least[t] <= target:
-            notes.append("")
-            continue
-        share = least[t] / paths
-        head = (f"target {problem.max_dry_probability:.1%} not reachable: at best "
-                f"{share:.1%} of paths run dry within the horizon")
-        notes.append(f"{head}; {_dry_cause(problem, t, visits[t], dry[t])}")
-    return np.maximum(target, least), least, tuple(notes)
-
-
-def _dry_cause(problem: PlanningProblem, t: int, visits: np.ndarray, dry: np.ndarray) -> str:
-    """Plain words for the most frequent cause of the dry days that no plan can avoid."""
-    days = dry.sum(axis=0)                      # dry paths per day within the horizon
-    worst = int(np.argmax(days))
-    before = np.flatnonzero(visits[: worst + 1])
+def _dry_cause(problem: PlanningProblem, t: int, visits: np.ndarray, dry: np.ndarray,
+               start: int) -> str:
+    """Plain words for the cause of the dry days that no plan can avoid in the shortest cycle
+    from ``start`` (0 = the start balance, ``a + 1`` = a visit on day ``a``)."""
+    d_count = visits.size
+    lo = 0 if start == 0 else start - 1
+    later = np.flatnonzero(visits[lo + 1:])
+    hi = lo + 1 + int(later[0]) if later.size else d_count
+    days = dry[:, lo:hi].sum(axis=0)            # dry paths per day of that cycle
+    worst = lo + int(np.argmax(days))
+    before = np.flatnonzero(visits[: worst + 1]) if start else np.zeros(0, int)
     when = f"{WEEKDAY_NAMES[problem.dates[worst].weekday()]} {problem.dates[worst]:%Y-%m-%d}"
     if before.size == 0:
         if problem.allowed[t].any():
@@ -269,7 +336,7 @@ def _dry_cause(problem: PlanningProblem, t: int, visits: np.ndarray, dry: np.nda
             return (f"the start balance {problem.start_balance[t]:,.0f} runs out before the "
                     f"first possible visit on {problem.dates[first]:%a %Y-%m-%d} "
                     f"(lock days, visit days or crews), e.g. on {when}")
-        return "no visit is possible within the horizon (visit days, lock days or crews)"
+        return "no visit is possible in the planned window (visit days, lock days or crews)"
     last = int(before[-1])
     if problem.committed[t, last]:
         return (f"the committed load {problem.fixed_load[t, last]:,.0f} on "
@@ -295,10 +362,11 @@ def result_from_plan(problem: PlanningProblem, visits: np.ndarray, loads: np.nda
     gap = relative_gap(objective, bound)
     if notes is None:
         notes = target_notes(problem)
+    counts = cycle_dry_counts(ledger, visits)
     return PlanResult(visits=visits, loads=loads, status=status, objective=objective,
                       bound=float(bound), gap=gap, solver=solver, time_s=float(time_s),
-                      notes=tuple(notes), dry_probability=ledger.dry_probability(
-                          problem.horizon_days), ledger=ledger, iterations=iterations,
+                      notes=tuple(notes),
+                      dry_probability=counts.max(axis=1) / problem.shape[1], ledger=ledger, iterations=iterations,
                       log=tuple(log))
 
 

@@ -6,38 +6,20 @@ a first visit, from visit to visit, and from the last visit to the end of the pl
 and the day price of ``a`` (the crew price of the network model). Committed visits cannot be
 skipped and keep their load.
 
-Service target: the paths with a dry day within the horizon are the union of the cycles' dry
-sets; at most ``allowance`` paths (:func:`planner.optimize.problem.dry_path_allowance`).
-
-Method, exact:
-
-1. Relaxation: every cycle on its own keeps at most ``allowance`` dry paths (a union is at
-   least as large as each of its sets). Shortest path over the days (dynamic programming,
-   vectorised over terminals). Its value is a lower bound; if its plan meets the target on the
-   union, it is optimal.
-2. Otherwise a small MILP on the arcs ``x[a, b, k]`` (flow through the days) with
-   ``z[p] = 1`` when path ``p`` may be dry, ``Σ z ≤ allowance`` and, per start day ``a`` and
-   path ``p``, ``Σ_{arcs from a dry on p} x ≤ z[p]``. Arcs whose own dry set exceeds the
-   allowance are left out, and so are dominated levels (a level costing at least as much as a
-   higher one, whose dry set is never larger; of levels with the same dry set the cheapest).
-   Given a plan that meets the target and costs ``U``, an arc is also left out when even the
-   relaxation cannot pass through it for less than ``U`` (forward + arc + backward value).
-
-Plans that meet the target quickly (columns between exact rounds, and the ``U`` above) come
-from pricing every dry path of a cycle (a shortest path per price, bisection on the price per
-terminal) and then lowering loads while the union of dry paths stays within the allowance.
+Service target: a limit per cycle (:class:`planner.optimize.problem.ServiceRule`), so it is
+already in the candidate lists of each cycle, and the shortest path over the days (dynamic
+programming in the manner of Wagner–Whitin, vectorised over terminals) is each terminal's exact
+optimum at the day prices. With soft targets (crews too few for every target) a dry path above
+a cycle's allowance is priced in the cycle's cost instead.
 """
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 
 import numpy as np
 
-from planner.optimize import milp
 from planner.optimize.cycles import Candidates, cycle_candidates
-from planner.optimize.problem import PlanningProblem
-
-BIG = 1 << 30
+from planner.optimize.problem import PlanningProblem, ServiceRule, next_visits
 
 
 @dataclass
@@ -48,44 +30,47 @@ class TerminalBatch:
     paths are contiguous). ``arc_ok`` ``[T, D, D + 1]``: a cycle from a visit on ``a`` to the
     next visit on ``b`` is possible (``a`` allowed, ``b`` allowed or the end, no committed
     visit skipped); ``initial_ok`` ``[T, D + 1]`` likewise for the first visit;
-    ``initial_cost`` is ``inf`` where the first visit cannot be on ``b``. ``candidates``: the
-    levels worth considering per cycle (:mod:`planner.optimize.cycles`).
+    ``initial_cost`` is ``inf`` where the first visit cannot be on ``b`` (soft targets: with
+    the price of its excess dry paths, ``initial_excess``). ``candidates``: the levels worth
+    considering per cycle (:mod:`planner.optimize.cycles`).
     """
 
     problem: PlanningProblem
+    rule: ServiceRule
     candidates: Candidates
     prefix: np.ndarray
-    allowance: np.ndarray
     arc_ok: np.ndarray
     initial_ok: np.ndarray
     initial_cost: np.ndarray
+    initial_excess: np.ndarray
     soft_penalty: float | None = None
-    # dry sets of cycles already asked for (they do not depend on prices)
-    dry_set_cache: dict = field(default_factory=dict, repr=False, compare=False)
 
 
-def prepare_batch(problem: PlanningProblem, allowance: np.ndarray,
+def prepare_batch(problem: PlanningProblem, rule: ServiceRule,
                   soft_penalty: float | None = None) -> TerminalBatch:
     """Candidate cycles of every terminal of ``problem`` (swap).
 
-    ``soft_penalty``: when given, the allowance may be exceeded at this cost per extra dry path
-    (used only when crew limits make the targets impossible together).
+    ``soft_penalty``: when given, a cycle's allowance may be exceeded at this cost per extra
+    dry path (used only when crew limits make the targets impossible together).
     """
     t_count, p_count, d_count = problem.demand.shape
     arc_ok, initial_ok = cycle_structure(problem)
-    candidates = cycle_candidates(problem, None if soft_penalty is not None else allowance,
-                                  arc_ok)
+    candidates = cycle_candidates(problem, rule, arc_ok, soft_penalty)
     # cumulative demand before each day, [terminal, day, path] so a day's paths are contiguous
     prefix = np.zeros((t_count, d_count + 1, p_count))
     np.cumsum(problem.demand.transpose(0, 2, 1), axis=1, out=prefix[:, 1:, :])
+    ends = np.broadcast_to(np.arange(d_count + 1), (t_count, d_count + 1))
+    allow = rule.allowance(np.zeros((t_count, d_count + 1), dtype=int), ends)
+    initial_excess = np.maximum(candidates.initial_dry - allow, 0)
     initial_cost = np.where(initial_ok, candidates.initial, np.inf)
     if soft_penalty is None:
-        initial_cost = np.where(candidates.initial_dry <= allowance[:, None], initial_cost,
-                                np.inf)
-    return TerminalBatch(problem=problem, candidates=candidates, prefix=prefix,
-                         allowance=np.asarray(allowance), arc_ok=arc_ok,
-                         initial_ok=initial_ok, initial_cost=initial_cost,
-                         soft_penalty=soft_penalty)
+        initial_cost = np.where(initial_excess == 0, initial_cost, np.inf)
+        initial_excess = np.zeros_like(initial_excess)
+    else:
+        initial_cost = initial_cost + soft_penalty * initial_excess
+    return TerminalBatch(problem=problem, rule=rule, candidates=candidates, prefix=prefix,
+                         arc_ok=arc_ok, initial_ok=initial_ok, initial_cost=initial_cost,
+                         initial_excess=initial_excess, soft_penalty=soft_penalty)
 
 
 def cycle_structure(problem: PlanningProblem) -> tuple[np.ndarray, np.ndarray]:
@@ -195,33 +180,17 @@ def _plans(batch: TerminalBatch, choice: np.ndarray, rows: np.ndarray, value: np
     return Plans(visits, next_visit, np.where(visits, lv, -1), value)
 
 
-def relaxed_plans(batch: TerminalBatch, day_price: np.ndarray,
-                  rows: np.ndarray | None = None) -> tuple[Plans, np.ndarray]:
-    """Step 1 (relaxation): every cycle takes its cheapest candidate. Returns the plans and
-    the forward values; ``value`` is a lower bound of each terminal's optimum."""
+def cheapest_plans(batch: TerminalBatch, day_price: np.ndarray,
+                   rows: np.ndarray | None = None) -> tuple[Plans, np.ndarray]:
+    """Every terminal's optimum at ``day_price`` ``[T, D]``: every cycle takes its cheapest
+    candidate, the days are joined by the shortest path. Returns the plans and the forward
+    values."""
     rows = np.arange(batch.problem.shape[0]) if rows is None else rows
     cost = batch.candidates.best_cost[rows]
     value, visits, next_visit, forward = shortest_plans(cost, batch.initial_cost[rows],
                                                         day_price)
     choice = np.zeros(cost.shape, dtype=int)
     return _plans(batch, choice, rows, value, visits, next_visit), forward
-
-
-def penalised_plans(batch: TerminalBatch, day_price: np.ndarray, rows: np.ndarray,
-                    penalty: np.ndarray) -> Plans:
-    """Shortest paths where every dry path of every cycle costs ``penalty`` ``[T]`` more (a
-    heuristic towards the service target; ``value`` is the plan's cost without the penalty)."""
-    cand = batch.candidates
-    cost = cand.cost[rows]
-    dry = cand.dry[rows]
-    priced = cost + penalty[:, None, None, None] * dry
-    choice = priced.argmin(axis=3)
-    arc = np.take_along_axis(priced, choice[..., None], axis=3)[..., 0]
-    init = batch.initial_cost[rows] + penalty[:, None] * cand.initial_dry[rows]
-    _, visits, next_visit, _ = shortest_plans(arc, init, day_price)
-    plans = _plans(batch, choice, rows, np.zeros(rows.size), visits, next_visit)
-    value = plan_values(batch, rows, plans, day_price)
-    return Plans(plans.visits, plans.next_visit, plans.levels, value)
 
 
 def plan_values(batch: TerminalBatch, rows: np.ndarray, plans: Plans,
@@ -248,335 +217,38 @@ def plan_values(batch: TerminalBatch, rows: np.ndarray, plans: Plans,
     return value
 
 
-def dry_union(batch: TerminalBatch, rows: np.ndarray, plans: Plans) -> np.ndarray:
-    """``[T, P]`` bool: the path has a dry day within the horizon under the plan (swap)."""
-    problem = batch.problem
-    d_count = problem.demand.shape[2]
-    horizon = problem.horizon_days
-    prefix = batch.prefix
-    visits = plans.visits
-    first = np.where(visits.any(axis=1), visits.argmax(axis=1), d_count)
-    end = np.minimum(first, horizon)                # days 0 … end − 1 on the start balance
-    dry = prefix[rows, end] > problem.start_balance[rows][:, None]
-    load = np.where(plans.levels >= 0, plans.levels, 0) * problem.bundle[rows][:, None]
-    for a in range(horizon):
-        on = np.flatnonzero(visits[:, a])
+def plan_excess(batch: TerminalBatch, rows: np.ndarray, plans: Plans) -> np.ndarray:
+    """``[T]`` dry paths above the allowance, summed over the cycles of plans of candidates
+    (0 unless targets are soft)."""
+    cand = batch.candidates
+    d_count = plans.visits.shape[1]
+    first = np.where(plans.visits.any(axis=1), plans.visits.argmax(axis=1), d_count)
+    out = np.take_along_axis(batch.initial_excess[rows], first[:, None], axis=1)[:, 0].copy()
+    for a in range(d_count):
+        on = np.flatnonzero(plans.visits[:, a])
         if not on.size:
             continue
-        t = rows[on]
-        e = np.minimum(plans.next_visit[on, a], horizon)
-        cum = prefix[t, e] - prefix[t, a]
-        dry[on] |= cum > load[on, a][:, None]
-    return dry
-
-
-def dry_counts(batch: TerminalBatch, rows: np.ndarray, plans: Plans) -> np.ndarray:
-    """``[T]`` paths with a dry day within the horizon under the plans."""
-    return dry_union(batch, rows, plans).sum(axis=1)
-
-
-# --------------------------------------------------------------------------------------------
-# Exact: the arc MILP of one terminal
-# --------------------------------------------------------------------------------------------
-
-
-@dataclass
-class ArcModel:
-    """The MILP of one terminal and how to read it back (one column per arc)."""
-
-    model: milp.LinearModel
-    arc_from: np.ndarray      # start day (−1 = start balance)
-    arc_to: np.ndarray
-    arc_level: np.ndarray
-    arc_cols: np.ndarray
-    path_cols: np.ndarray
-
-
-def define_arcs(model: milp.LinearModel, batch: TerminalBatch, t: int, day_price: np.ndarray,
-                keep: np.ndarray, keep_initial: np.ndarray
-                ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-    """Binary ``x[a, b, k]``, one per kept candidate cycle, costing cycle + visit price of
-    ``a``; and ``x[start, b]`` for a first visit on ``b`` (the start balance, no level)."""
-    cand = batch.candidates
-    init = np.flatnonzero(keep_initial)
-    a, b, c = np.nonzero(keep)
-    cost = np.concatenate([batch.initial_cost[t, init], cand.cost[t, a, b, c] + day_price[a]])
-    frm = np.concatenate([np.full(init.size, -1), a])
-    to = np.concatenate([init, b])
-    lev = np.concatenate([np.full(init.size, -1), cand.level[t, a, b, c]])
-    dry = np.concatenate([cand.initial_dry[t, init], cand.dry[t, a, b, c]])
-    names = [f"x-{'start' if f < 0 else f}-{g}-{max(v, 0)}" for f, g, v in zip(frm, to, lev)]
-    cols = model.add_variables(names, cost, 0.0, 1.0, integer=True)
-    return frm, to, lev, dry, cols
-
-
-def define_flow(model: milp.LinearModel, batch: TerminalBatch, t: int, frm: np.ndarray,
-                to: np.ndarray, cols: np.ndarray) -> None:
-    """One first visit: ``Σ_b x[start, b] = 1``; through every allowed day ``a``:
-    ``Σ_in x − Σ_out x = 0``; ``Σ_in x = 1`` on committed visits."""
-    problem = batch.problem
-    d_count = problem.demand.shape[2]
-    first = frm < 0
-    model.add_constraints(["flow-start"], np.zeros(first.sum()), cols[first],
-                          np.ones(first.sum()), 1.0, 1.0)
-    days = np.flatnonzero(problem.allowed[t])
-    row_of = np.full(d_count + 1, -1)
-    row_of[days] = np.arange(days.size)
-    into = row_of[to] >= 0
-    out = (frm >= 0) & (row_of[np.maximum(frm, 0)] >= 0)
-    model.add_constraints([f"flow-{d}" for d in days],
-                          np.concatenate([row_of[to[into]], row_of[frm[out]]]),
-                          np.concatenate([cols[into], cols[out]]),
-                          np.concatenate([np.ones(into.sum()), -np.ones(out.sum())]), 0.0, 0.0)
-    committed = np.flatnonzero(problem.committed[t])
-    if committed.size:
-        crow = np.full(d_count + 1, -1)
-        crow[committed] = np.arange(committed.size)
-        hit = crow[to] >= 0
-        model.add_constraints([f"committed-visit-{d}" for d in committed], crow[to[hit]],
-                              cols[hit], np.ones(hit.sum()), 1.0, 1.0)
-
-
-def define_dry_paths(model: milp.LinearModel, batch: TerminalBatch, t: int, frm: np.ndarray,
-                     to: np.ndarray, lev: np.ndarray, dry: np.ndarray,
-                     cols: np.ndarray) -> np.ndarray:
-    """Binary ``z[p]`` (path p may run dry within the horizon), ``Σ_p z[p] ≤ allowance`` (a
-    priced excess in the soft variant) and per start node and path
-    ``Σ_{arcs from the node dry on p} x − z[p] ≤ 0``."""
-    problem = batch.problem
-    p_count = problem.demand.shape[1]
-    horizon = problem.horizon_days
-    prefix = batch.prefix[t].T                       # [path, day]
-    link_node, link_path, link_col = [], [], []
-    orders: dict[tuple[int, int], np.ndarray] = {}
-    for f, g, n, c in zip(frm, to, dry, cols):
-        if n == 0 or f >= horizon:
-            continue
-        e = min(g, horizon)
-        key = (f, e)
-        if key not in orders:
-            base = prefix[:, 0] if f < 0 else prefix[:, f]
-            # dry paths of a cycle are those with the largest cumulative demand
-            orders[key] = np.argsort(-(prefix[:, e] - base), kind="stable")
-        paths = orders[key][:n]
-        link_node.append(np.full(n, f))
-        link_path.append(paths)
-        link_col.append(np.full(n, c))
-    if not link_node:
-        return np.zeros(0, dtype=int)
-    node = np.concatenate(link_node)
-    path = np.concatenate(link_path)
-    col = np.concatenate(link_col)
-    used = np.unique(path)
-    zcols = model.add_variables([f"z-{p}" for p in used], 0.0, 0.0, 1.0, integer=True)
-    zcol_of = np.full(p_count, -1)
-    zcol_of[used] = zcols
-    if batch.soft_penalty is not None:
-        excess = model.add_variables(["excess-dry-paths"], batch.soft_penalty, 0.0, milp.INF)
-        model.add_constraints(["dry-path-allowance"], np.zeros(used.size + 1),
-                              np.append(zcols, excess), np.append(np.ones(used.size), -1.0),
-                              upper=float(batch.allowance[t]))
-    else:
-        model.add_constraints(["dry-path-allowance"], np.zeros(used.size), zcols,
-                              np.ones(used.size), upper=float(batch.allowance[t]))
-    key = (node + 1) * p_count + path
-    rows_key, row = np.unique(key, return_inverse=True)
-    names = [f"dry-link-{'start' if q // p_count == 0 else q // p_count - 1}-{q % p_count}"
-             for q in rows_key]
-    model.add_constraints(names, np.concatenate([row, np.arange(rows_key.size)]),
-                          np.concatenate([col, zcol_of[rows_key % p_count]]),
-                          np.concatenate([np.ones(row.size), -np.ones(rows_key.size)]),
-                          upper=0.0)
-    return zcols
-
-
-def build_arc_model(batch: TerminalBatch, t: int, day_price: np.ndarray,
-                    upper_bound: float = np.inf, pattern: np.ndarray | None = None
-                    ) -> ArcModel:
-    """The exact MILP of terminal ``t`` at day prices ``day_price`` ``[D]``.
-
-    With a known plan costing ``upper_bound``, arcs that cannot lie on any cheaper plan even in
-    the relaxation (forward + arc + backward value above the bound) are left out. With a visit
-    ``pattern`` ``[D]`` only its cycles remain (the loads are then what is chosen).
-    """
-    cand = batch.candidates
-    keep = np.isfinite(cand.cost[t])
-    keep_initial = np.isfinite(batch.initial_cost[t])
-    if pattern is not None:
-        d_count = pattern.size
-        days = np.flatnonzero(pattern)
-        ends = np.append(days[1:], d_count)
-        only = np.zeros(keep.shape[:2], bool)
-        only[days, ends] = True
-        keep &= only[:, :, None]
-        first = np.zeros(d_count + 1, bool)
-        first[days[0] if days.size else d_count] = True
-        keep_initial &= first
-    if np.isfinite(upper_bound):
-        arc = cand.best_cost[t][None]
-        price = day_price[None]
-        _, _, _, forward = shortest_plans(arc, batch.initial_cost[t][None], price)
-        back = backward_values(arc, price)[0]
-        limit = upper_bound + 1e-7 * max(1.0, abs(upper_bound))
-        through = (forward[0, :-1, None, None] + day_price[:, None, None] + cand.cost[t]
-                   + back[None, :, None])
-        keep &= through <= limit
-        keep_initial &= batch.initial_cost[t] + back <= limit
-    model = milp.LinearModel(name=f"terminal-{batch.problem.terminal_ids[t]}")
-    frm, to, lev, dry, cols = define_arcs(model, batch, t, day_price, keep, keep_initial)
-    define_flow(model, batch, t, frm, to, cols)
-    zcols = define_dry_paths(model, batch, t, frm, to, lev, dry, cols)
-    return ArcModel(model, frm, to, lev, cols, zcols)
-
-
-def read_arc_solution(arc: ArcModel, x: np.ndarray, d_count: int
-                      ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """``(visits [D], next_visit [D], levels [D])`` of a solved arc model."""
-    chosen = x[arc.arc_cols] > 0.5
-    visits = np.zeros(d_count, bool)
-    next_visit = np.full(d_count, d_count)
-    levels = np.full(d_count, -1)
-    for f, g, k in zip(arc.arc_from[chosen], arc.arc_to[chosen], arc.arc_level[chosen]):
-        if f >= 0:
-            visits[f] = True
-            next_visit[f] = g
-            levels[f] = k
-    return visits, next_visit, levels
-
-
-def exact_plan(batch: TerminalBatch, t: int, day_price: np.ndarray, *,
-               upper_bound: float = np.inf, solver: str = "highs", time_limit_s: float = 30.0,
-               mip_rel_gap: float = 1e-9, pattern: np.ndarray | None = None
-               ) -> tuple[Plans, float, str]:
-    """Solve terminal ``t`` exactly (up to ``mip_rel_gap``), optionally on a fixed visit
-    ``pattern``. Returns ``(plan (one row), bound, status)``; the plan's value is its cost at
-    the prices (``inf`` when the model found no plan cheaper than ``upper_bound``)."""
-    arc = build_arc_model(batch, t, day_price, upper_bound, pattern)
-    sol = milp.solve(arc.model, solver=solver, time_limit_s=time_limit_s,
-                     mip_rel_gap=mip_rel_gap)
-    d_count = batch.problem.demand.shape[2]
-    if sol.status in ("infeasible", "error"):
-        empty = Plans(np.zeros((1, d_count), bool), np.full((1, d_count), d_count),
-                      np.full((1, d_count), -1), np.array([np.inf]))
-        bound = upper_bound if sol.status == "infeasible" else -np.inf
-        return empty, bound, sol.status
-    visits, next_visit, levels = read_arc_solution(arc, sol.x, d_count)
-    plan = Plans(visits[None], next_visit[None], levels[None], np.array([sol.objective]))
-    return plan, sol.bound, sol.status
-
-
-# --------------------------------------------------------------------------------------------
-# Heuristic plans that meet the service target (upper bounds, columns)
-# --------------------------------------------------------------------------------------------
-
-
-def target_plans(batch: TerminalBatch, day_price: np.ndarray, rows: np.ndarray, *,
-                 steps: int | None = None,
-                 penalty_range: tuple[np.ndarray, np.ndarray] | None = None
-                 ) -> tuple[Plans, tuple[np.ndarray, np.ndarray]]:
-    """Plans of ``rows`` that meet the service target, found by pricing each cycle's dry paths
-    (bisection on the price per dry path, in log scale) and then lowering loads while the
-    union of dry paths stays within the allowance. ``value`` is ``inf`` where none was found.
-
-    Returns the plans and the final bisection range (to start the next call from); ``steps``
-    of bisection (default 12 from scratch, 6 from a previous range)."""
-    allowance = batch.allowance[rows]
-    if steps is None:
-        steps = 12 if penalty_range is None else 6
-    if penalty_range is None:
-        low = np.full(rows.size, 1e-2)
-        high = np.full(rows.size, 1e7)
-    else:
-        low, high = (np.asarray(x, dtype=float).copy() for x in penalty_range)
-        low = np.maximum(low / 4.0, 1e-2)      # prices move between calls: widen a little
-        high = np.minimum(high * 4.0, 1e7)
-    d_count = day_price.shape[1]
-    best = Plans(np.zeros((rows.size, d_count), bool), np.full((rows.size, d_count), d_count),
-                 np.full((rows.size, d_count), -1), np.full(rows.size, np.inf))
-    idx = np.arange(rows.size)
-    top = penalised_plans(batch, day_price, rows, high)
-    ok = dry_counts(batch, rows, top) <= allowance
-    best.put(idx, top, ok)
-    high = np.where(ok, high, 1e7)
-    for _ in range(steps):
-        mid = np.sqrt(low * high)
-        plans = penalised_plans(batch, day_price, rows, mid)
-        ok = dry_counts(batch, rows, plans) <= allowance
-        best.put(idx, plans, ok & (plans.value < best.value))
-        high = np.where(ok, mid, high)
-        low = np.where(ok, low, mid)
-    found = np.isfinite(best.value)
-    if found.any():
-        sub = idx[found]
-        lowered = lower_loads(batch, rows[sub], best.take(sub), day_price[sub])
-        best.put(sub, lowered)
-    return best, (low, high)
-
-
-def cycle_dry_sets(batch: TerminalBatch, t: int, a: int, b: int) -> list[int]:
-    """Dry sets (Python int bit sets over paths) of the candidates of cycle ``a → b``
-    (``a = −1``: the start balance; one set), in candidate order."""
-    key = (t, a, b)
-    cached = batch.dry_set_cache.get(key)
-    if cached is not None:
-        return cached
-    problem = batch.problem
-    horizon = problem.horizon_days
-    if a >= horizon:
-        return [0] * batch.candidates.cost.shape[3]
-    prefix = batch.prefix[t].T                       # [path, day]
-    e = min(b, horizon)
-    base = prefix[:, 0] if a < 0 else prefix[:, a]
-    order = np.argsort(-(prefix[:, e] - base), kind="stable")
-    counts = ([int(batch.candidates.initial_dry[t, b])] if a < 0
-              else batch.candidates.dry[t, a, b].tolist())
-    sets, acc, done = [], 0, 0
-    for n in sorted(set(counts)):
-        for p in order[done:n]:
-            acc |= 1 << int(p)
-        done = n
-        sets.append((n, acc))
-    by_count = dict(sets)
-    batch.dry_set_cache[key] = out = [by_count[n] for n in counts]
+        b = plans.next_visit[on, a]
+        hit = cand.level[rows[on], a, b, :] == plans.levels[on, a][:, None]
+        x = np.take_along_axis(cand.excess[rows[on], a, b, :], hit.argmax(axis=1)[:, None],
+                               axis=1)[:, 0]
+        out[on] += np.where(hit.any(axis=1), x, 0)
     return out
 
 
-def lower_loads(batch: TerminalBatch, rows: np.ndarray, plans: Plans,
-                day_price: np.ndarray) -> Plans:
-    """Greedy improvement of plans that meet the target: repeatedly move the cycle with the
-    largest saving to its next cheaper candidate while the union of dry paths stays within the
-    allowance. Visit days stay as they are."""
+def pattern_plans(batch: TerminalBatch, t: int, patterns: np.ndarray,
+                  price: np.ndarray) -> Plans:
+    """The best plan of terminal ``t`` on each visit pattern ``patterns`` ``[n, D]`` at day
+    prices ``price`` ``[D]``: each cycle its cheapest candidate (exact, the target being a
+    limit per cycle); ``value`` ``inf`` where the pattern has no plan."""
     cand = batch.candidates
-    out = Plans(plans.visits.copy(), plans.next_visit.copy(), plans.levels.copy(),
-                plans.value.copy())
-    for i, t in enumerate(rows):
-        days = np.flatnonzero(plans.visits[i])
-        first = days[0] if days.size else plans.visits.shape[1]
-        fixed = cycle_dry_sets(batch, t, -1, first)[0]
-        cycles = []
-        for a in days:
-            b = int(plans.next_visit[i, a])
-            levels = cand.level[t, a, b]
-            c = int(np.flatnonzero(levels == plans.levels[i, a])[0])
-            cycles.append([a, b, c, cycle_dry_sets(batch, t, a, b)])
-        limit = int(batch.allowance[t])
-        while True:
-            best_gain, best_j = 0.0, -1
-            for j, (a, b, c, sets) in enumerate(cycles):
-                if c == 0:
-                    continue
-                gain = cand.cost[t, a, b, c] - cand.cost[t, a, b, c - 1]
-                if gain <= best_gain:
-                    continue
-                union = fixed
-                for q, (_, _, cq, sq) in enumerate(cycles):
-                    union |= sq[cq - 1] if q == j else sq[cq]
-                if union.bit_count() <= limit:
-                    best_gain, best_j = gain, j
-            if best_j < 0:
-                break
-            cycles[best_j][2] -= 1
-            out.value[i] -= best_gain
-        for a, b, c, _ in cycles:
-            out.levels[i, a] = cand.level[t, a, b, c]
-    return out
+    d_count = patterns.shape[1]
+    nxt = next_visits(patterns)
+    first = np.where(patterns.any(axis=1), patterns.argmax(axis=1), d_count)
+    value = batch.initial_cost[t][first].copy()
+    levels = np.full(patterns.shape, -1)
+    for a in range(d_count):
+        on = patterns[:, a]
+        value[on] += cand.best_cost[t, a, nxt[on, a]] + price[a]
+        levels[on, a] = cand.best_level[t, a, nxt[on, a]]
+    return Plans(patterns.copy(), np.where(patterns, nxt, d_count), levels, value)

@@ -56,11 +56,12 @@ from dataclasses import replace
 
 import numpy as np
 
-from planner.costs import simulate
+from planner.costs import cycle_dry_counts, simulate
 from planner.optimize import milp, terminal
 from planner.optimize.network import (ColumnPool, _soft_penalty, solve_depot,
                                       solve_master_lp, solve_master_mip)
-from planner.optimize.problem import PlanningProblem, PlanResult, next_visits, result_from_plan
+from planner.optimize.problem import (PlanningProblem, PlanResult, ServiceRule, next_visits,
+                                      result_from_plan, service_rule)
 
 ENUMERATION_LIMIT = 40_000_000     # plans × paths × days costed when enumerating a terminal
 PATTERN_LIMIT = 300_000            # patterns × paths × days when every pattern gets its loads
@@ -83,19 +84,20 @@ def plan_count(problem: PlanningProblem, t: int) -> int:
 
 
 def evaluate(problem: PlanningProblem, rows: np.ndarray, visits: np.ndarray,
-             loads: np.ndarray, allowance: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Exact ``(expected cost [n], dry paths above the allowance [n])`` of one plan per row."""
+             loads: np.ndarray, rule: ServiceRule) -> tuple[np.ndarray, np.ndarray]:
+    """Exact ``(expected cost [n], dry paths above the allowance summed over cycles [n])`` of
+    one plan per row (``rule`` the service rule of ``problem``'s terminals)."""
     ledger = simulate(visits, np.where(visits, loads, 0.0), problem.start_balance[rows],
                       problem.demand[rows], problem.limit[rows], problem.visit_fee[rows],
                       problem.rates, problem.mode)
-    dry = ledger.dry_paths(problem.horizon_days).sum(axis=1)
-    return ledger.expected_cost(), np.maximum(dry - allowance[rows], 0)
+    counts = cycle_dry_counts(ledger, visits)
+    return ledger.expected_cost(), rule.excess(visits, counts, rows)
 
 
-def enumerate_patterns(problem: PlanningProblem, t: int, allowance: np.ndarray,
+def enumerate_patterns(problem: PlanningProblem, t: int, rule: ServiceRule,
                        penalty: float) -> list[tuple[np.ndarray, np.ndarray, float]]:
     """Every plan of terminal ``t``; per visit pattern the plan with the least priced cost
-    (expected cost + ``penalty`` per dry path above the allowance)."""
+    (expected cost + ``penalty`` per dry path above a cycle's allowance)."""
     d_count = problem.shape[2]
     committed = problem.committed[t]
     free = np.flatnonzero(problem.allowed[t] & ~committed)
@@ -120,8 +122,7 @@ def enumerate_patterns(problem: PlanningProblem, t: int, allowance: np.ndarray,
                               np.full(m, problem.limit[t]),
                               np.broadcast_to(problem.visit_fee[t], (m, d_count)),
                               problem.rates, problem.mode)
-            excess = np.maximum(ledger.dry_paths(problem.horizon_days).sum(axis=1)
-                                - allowance[t], 0)
+            excess = rule.excess(visits, cycle_dry_counts(ledger, visits), np.full(m, t))
             priced = ledger.expected_cost() + penalty * excess
             i = int(np.argmin(priced))
             if priced[i] < best[0]:
@@ -131,14 +132,14 @@ def enumerate_patterns(problem: PlanningProblem, t: int, allowance: np.ndarray,
 
 
 def refine_loads(problem: PlanningProblem, rows: np.ndarray, visits: np.ndarray,
-                 loads: np.ndarray, allowance: np.ndarray, penalty: float,
+                 loads: np.ndarray, rule: ServiceRule, penalty: float,
                  passes: int = 4, deadline: float = math.inf) -> tuple[np.ndarray, np.ndarray]:
     """Coordinate descent on the free loads of fixed visit patterns (whole bundles within
     ``0 … limit``), on the exact priced cost: per visit one bundle down and up, then on in the
     better direction with doubling steps while the cost falls. Returns ``(loads, priced
     cost)``."""
     loads = loads.copy()
-    cost, excess = evaluate(problem, rows, visits, loads, allowance)
+    cost, excess = evaluate(problem, rows, visits, loads, rule)
     priced = cost + penalty * excess
     free = visits & ~problem.committed[rows]
     order = np.cumsum(free, axis=1) - 1                      # index of each free visit
@@ -154,7 +155,7 @@ def refine_loads(problem: PlanningProblem, rows: np.ndarray, visits: np.ndarray,
         moved = (trial != loads[sub]).any(axis=1)
         if not moved.any():
             return np.zeros(sub.size, bool)
-        c, e = evaluate(problem, rows[sub[moved]], visits[sub[moved]], trial[moved], allowance)
+        c, e = evaluate(problem, rows[sub[moved]], visits[sub[moved]], trial[moved], rule)
         p = c + penalty * e
         better = np.zeros(sub.size, bool)
         gain = p < priced[sub[moved]] - 1e-9 * np.maximum(1.0, np.abs(priced[sub[moved]]))
@@ -191,7 +192,7 @@ def refine_loads(problem: PlanningProblem, rows: np.ndarray, visits: np.ndarray,
     return loads, priced
 
 
-def pattern_columns(problem: PlanningProblem, t: int, allowance: np.ndarray,
+def pattern_columns(problem: PlanningProblem, t: int, rule: ServiceRule,
                     penalty: float) -> list[tuple[np.ndarray, np.ndarray, float]]:
     """Every visit pattern of terminal ``t``, each with loads found by coordinate descent from
     three starts (full loads; the mean and the 95 % quantile of the demand until the next
@@ -220,7 +221,7 @@ def pattern_columns(problem: PlanningProblem, t: int, allowance: np.ndarray,
         for i in range(0, len(visits), step):
             part = slice(i, i + step)
             rows = np.full(len(visits[part]), t)
-            found, priced = refine_loads(problem, rows, visits[part], loads[part], allowance,
+            found, priced = refine_loads(problem, rows, visits[part], loads[part], rule,
                                          penalty)
             better = priced < best[part]
             best[part] = np.where(better, priced, best[part])
@@ -230,26 +231,18 @@ def pattern_columns(problem: PlanningProblem, t: int, allowance: np.ndarray,
 
 
 def order_up_to_columns(problem: PlanningProblem, batch: terminal.TerminalBatch,
-                        rows: np.ndarray, price: np.ndarray, allowance: np.ndarray,
+                        rows: np.ndarray, price: np.ndarray, rule: ServiceRule,
                         penalty: float, deadline: float = math.inf
                         ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Plans of ``rows`` at day prices ``price`` ``[n, D]``: swap pattern and levels as top-up
     loads, refined on the paths. Returns ``(visits, loads, priced cost without day prices)``."""
-    relaxed, _ = terminal.relaxed_plans(batch, price, rows)
-    plans = relaxed
-    binding = np.flatnonzero(terminal.dry_counts(batch, rows, relaxed) > batch.allowance[rows])
-    if binding.size:
-        heur, _ = terminal.target_plans(batch, price[binding], rows[binding])
-        found = np.isfinite(heur.value)
-        plans = terminal.Plans(relaxed.visits.copy(), relaxed.next_visit.copy(),
-                               relaxed.levels.copy(), relaxed.value.copy())
-        plans.put(binding, heur, found)
+    plans, _ = terminal.cheapest_plans(batch, price, rows)
     visits = plans.visits
     loads = np.where(visits, np.maximum(plans.levels, 0) * problem.bundle[rows][:, None], 0.0)
     committed = problem.committed[rows]
     loads = np.where(committed, np.nan_to_num(problem.fixed_load[rows]), loads)
     visits = visits | committed
-    loads, priced = refine_loads(problem, rows, visits, loads, allowance, penalty,
+    loads, priced = refine_loads(problem, rows, visits, loads, rule, penalty,
                                  deadline=deadline)
     return visits, loads, priced
 
@@ -260,8 +253,8 @@ _WORK: dict = {}
 def _depot_task(args):
     from planner.optimize.network import depot_task_setup
 
-    k, deadline, members, sub, allowance, notes = depot_task_setup(args, _WORK)
-    return (k, members, notes) + _solve_depot(sub, allowance, k, deadline, _WORK["solver"],
+    k, deadline, members, sub, rule, notes = depot_task_setup(args, _WORK)
+    return (k, members, notes) + _solve_depot(sub, rule, k, deadline, _WORK["solver"],
                                              _WORK["gap"])
 
 
@@ -316,7 +309,7 @@ def solve_topup(problem: PlanningProblem, *, time_limit_s: float = 60.0, solver:
     return result
 
 
-def _solve_depot(sub: PlanningProblem, allowance: np.ndarray, depot: int, deadline: float,
+def _solve_depot(sub: PlanningProblem, rule: ServiceRule, depot: int, deadline: float,
                  solver: str, gap_tolerance: float):
     begun = time.perf_counter()
     # the column rounds until half the time, the local search until 85 %, then the master
@@ -331,7 +324,7 @@ def _solve_depot(sub: PlanningProblem, allowance: np.ndarray, depot: int, deadli
     work = sub.shape[1] * d_count
     small = np.array([plan_count(sub, t) * work <= ENUMERATION_LIMIT for t in range(t_count)])
     for t in np.flatnonzero(small):
-        for visit, load, cost in enumerate_patterns(sub, t, allowance, penalty):
+        for visit, load, cost in enumerate_patterns(sub, t, rule, penalty):
             pool.add(t, visit, _levels(sub, t, visit, load), cost)
     few = np.array([not small[t] and pattern_count(sub, t) * work <= PATTERN_LIMIT
                     for t in range(t_count)])
@@ -340,13 +333,13 @@ def _solve_depot(sub: PlanningProblem, allowance: np.ndarray, depot: int, deadli
         if time.perf_counter() > half_time:
             few[t] = False               # out of time: the order-up-to columns instead
             continue
-        for visit, load, cost in pattern_columns(sub, t, allowance, penalty):
+        for visit, load, cost in pattern_columns(sub, t, rule, penalty):
             pool.add(t, visit, _levels(sub, t, visit, load), cost)
     large = np.flatnonzero(~small & ~few)
     # committed visits only: always within the crews
     base_visits = sub.committed.copy()
     base_loads = np.where(base_visits, np.nan_to_num(sub.fixed_load), 0.0)
-    cost, excess = evaluate(sub, np.arange(t_count), base_visits, base_loads, allowance)
+    cost, excess = evaluate(sub, np.arange(t_count), base_visits, base_loads, rule)
     for t in range(t_count):
         pool.add(t, base_visits[t], _levels(sub, t, base_visits[t], base_loads[t]),
                  cost[t] + penalty * excess[t])
@@ -357,26 +350,28 @@ def _solve_depot(sub: PlanningProblem, allowance: np.ndarray, depot: int, deadli
         rows = np.arange(large.size)
         # the swap model of these terminals first (fast, exact for swap): its plans, loaded as
         # top-up amounts, are at least as safe on every path and fit the crews together
-        swap = solve_depot(replace(part, mode="swap"), allowance[large], depot,
+        as_swap = replace(part, mode="swap")
+        swap_rule = service_rule(as_swap)
+        swap = solve_depot(as_swap, swap_rule, depot,
                            deadline=begun + 0.3 * (deadline - begun), solver=solver,
                            gap_tolerance=gap_tolerance)
         log.extend(f"{line} (swap start)" for line in swap.log[-1:])
-        added = _add_as_topup(pool, sub, large, swap.pool, allowance, penalty)
+        added = _add_as_topup(pool, sub, large, swap.pool, rule, penalty)
         v = swap.visits | part.committed
         lo = np.where(v, np.maximum(swap.levels, 0) * part.bundle[:, None], 0.0)
         lo = np.where(part.committed, np.nan_to_num(part.fixed_load), lo)
-        lo, priced = refine_loads(part, rows, v, lo, allowance[large], penalty,
+        lo, priced = refine_loads(part, rows, v, lo, rule.take(large), penalty,
                                   deadline=rounds_until)
         added += sum(pool.add(t, v[i], _levels(sub, t, v[i], lo[i]), priced[i])
                      for i, t in enumerate(large))
         log.append(f"{name}: top-up from the swap plans: {added} columns")
-        batch = terminal.prepare_batch(part, allowance[large])
+        batch = terminal.prepare_batch(as_swap, swap_rule)
         _, _, lam, _ = solve_master_lp(pool, t_count, name, crew, None, solver)
         for iteration in range(12):
             if time.perf_counter() > rounds_until:
                 break
             price = sub.visit_fee[large] + lam[None, :]
-            v, lo, priced = order_up_to_columns(part, batch, rows, price, allowance[large],
+            v, lo, priced = order_up_to_columns(part, batch, rows, price, rule.take(large),
                                                 penalty, deadline=rounds_until)
             added = 0
             for i, t in enumerate(large):
@@ -392,7 +387,7 @@ def _solve_depot(sub: PlanningProblem, allowance: np.ndarray, depot: int, deadli
                 break
             best_v, best_l, best_c = _best_columns(pool, sub, large, price)
             v, lo, priced = neighbour_plans(part, np.arange(large.size), best_v, best_l,
-                                            allowance[large], penalty, price[large],
+                                            rule.take(large), penalty, price[large],
                                             deadline=search_until)
             added = sum(pool.add(t, v[i], _levels(sub, t, v[i], lo[i]), priced[i])
                         for i, t in enumerate(large) if np.isfinite(priced[i]))
@@ -402,7 +397,7 @@ def _solve_depot(sub: PlanningProblem, allowance: np.ndarray, depot: int, deadli
     exact = ~small & (sub.shape[1] * d_count <= EXACT_PRICING_LIMIT)
     lagrangian = -math.inf
     if exact.any() and (small | exact).all():
-        lagrangian = _exact_rounds(sub, pool, small, exact, allowance, penalty, crew, name,
+        lagrangian = _exact_rounds(sub, pool, small, exact, rule, penalty, crew, name,
                                    solver, search_until, log)
     remaining = max(deadline - time.perf_counter(), 1.0)
     status, chosen, objective, mip_bound = solve_master_mip(pool, t_count, name, crew, solver,
@@ -412,7 +407,7 @@ def _solve_depot(sub: PlanningProblem, allowance: np.ndarray, depot: int, deadli
     levels = np.array([pool.levels[j] for j in chosen])
     loads = np.where(visits, np.maximum(levels, 0) * sub.bundle[:, None], 0.0)
     loads = np.where(sub.committed, np.nan_to_num(sub.fixed_load), loads)
-    _, excess = evaluate(sub, np.arange(t_count), visits, loads, allowance)
+    _, excess = evaluate(sub, np.arange(t_count), visits, loads, rule)
     priced_excess = float(excess.sum() * penalty)
     log.append(f"{name}: master MILP {status}, priced objective {objective:,.2f}")
     if np.isfinite(lagrangian):
@@ -443,7 +438,7 @@ def price_exactly(problem: PlanningProblem, t: int, price: np.ndarray, time_limi
 
 
 def _exact_rounds(sub: PlanningProblem, pool: ColumnPool, small: np.ndarray,
-                  exact: np.ndarray, allowance: np.ndarray, penalty: float, crew: np.ndarray,
+                  exact: np.ndarray, rule: ServiceRule, penalty: float, crew: np.ndarray,
                   name: str, solver: str, deadline: float, log: list) -> float:
     """Column generation with exact pricing: the ``exact`` terminals by
     :func:`price_exactly`, the enumerated (``small``) ones from their complete columns. Adds
@@ -474,7 +469,7 @@ def _exact_rounds(sub: PlanningProblem, pool: ColumnPool, small: np.ndarray,
                 finished = False
                 continue
             lower[t] = min(lower[t], value)
-            c, e = evaluate(sub, np.array([t]), v[None], lo[None], allowance)
+            c, e = evaluate(sub, np.array([t]), v[None], lo[None], rule)
             if value < mu[t] - 1e-9 * max(1.0, abs(value)):
                 added += pool.add(t, v, _levels(sub, t, v, lo), float(c[0] + penalty * e[0]))
         if not finished:
@@ -489,7 +484,7 @@ def _exact_rounds(sub: PlanningProblem, pool: ColumnPool, small: np.ndarray,
 
 
 def _add_as_topup(pool: ColumnPool, problem: PlanningProblem, members: np.ndarray,
-                  swap_pool: ColumnPool | None, allowance: np.ndarray, penalty: float) -> int:
+                  swap_pool: ColumnPool | None, rule: ServiceRule, penalty: float) -> int:
     """Add the plans of a swap pool (terminals numbered within ``members``) with their levels
     as top-up loads, priced exactly. Returns how many were new."""
     if swap_pool is None or not swap_pool.cost:
@@ -503,7 +498,7 @@ def _add_as_topup(pool: ColumnPool, problem: PlanningProblem, members: np.ndarra
     added = 0
     for i in range(0, term.size, step):
         part = slice(i, i + step)
-        cost, excess = evaluate(problem, term[part], visits[part], loads[part], allowance)
+        cost, excess = evaluate(problem, term[part], visits[part], loads[part], rule)
         for t, v, lo, c in zip(term[part], visits[part], loads[part], cost + penalty * excess):
             added += pool.add(t, v, _levels(problem, t, v, lo), c)
     return added
@@ -529,7 +524,7 @@ def _best_columns(pool: ColumnPool, problem: PlanningProblem, terminals: np.ndar
 
 
 def neighbour_plans(problem: PlanningProblem, rows: np.ndarray, visits: np.ndarray,
-                    loads: np.ndarray, allowance: np.ndarray, penalty: float,
+                    loads: np.ndarray, rule: ServiceRule, penalty: float,
                     price: np.ndarray, deadline: float = math.inf
                     ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """For each plan, the best of its neighbours (one free visit dropped, added on an allowed
@@ -581,7 +576,7 @@ def neighbour_plans(problem: PlanningProblem, rows: np.ndarray, visits: np.ndarr
     best = np.full(rows.size, np.inf)
     if not cand_row:
         return best_v, best_l, best
-    base_cost, base_excess = evaluate(problem, rows, visits, loads, allowance)
+    base_cost, base_excess = evaluate(problem, rows, visits, loads, rule)
     base = base_cost + penalty * base_excess + (visits * price).sum(axis=1)
     cand_row = np.array(cand_row)
     cand_v, cand_l = np.array(cand_v), np.array(cand_l)
@@ -591,7 +586,7 @@ def neighbour_plans(problem: PlanningProblem, rows: np.ndarray, visits: np.ndarr
             break
         part = slice(k, k + step)
         r = cand_row[part]
-        found, priced = refine_loads(problem, rows[r], cand_v[part], cand_l[part], allowance,
+        found, priced = refine_loads(problem, rows[r], cand_v[part], cand_l[part], rule,
                                      penalty, passes=2, deadline=deadline)
         judged = priced + (cand_v[part] * price[r]).sum(axis=1)
         for q in np.argsort(judged):
