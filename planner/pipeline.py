@@ -38,6 +38,7 @@ class PlanOptions:
     tail_days: int | None = None             # None: see tail_for
     origins: int = 8
     evaluate: bool = True
+    calibrate: bool = True                   # calibrate the chance constraint on fresh paths
     diagnose: bool = True
     report: bool = True
     backtest_weeks: int = 0                  # > 0: also replay that many past weeks
@@ -217,13 +218,14 @@ def plan_scenario(source: str | Path | Scenario, *, options: PlanOptions | None 
                                  progress=lambda done, total: progress("forecast", done, total))
     problem = build_problem(scenario, forecast.paths, forecast.dates, tail_days=tail)
     progress("optimize", 0, len(problem.terminal_ids))
-    result = solve_plan(problem, time_limit_s=options.time_limit_s,
-                        progress=lambda done, total: progress("optimize", done, total))
+    problem, result, calibration = plan_problem(scenario, clean, problem, options, progress)
     plan = plan_frame(problem, result)
     orders = orders_frame(problem, result)
     costs = result.ledger.parts()
     costs.insert(0, "terminal_id", list(problem.terminal_ids))
     summary = _summary(scenario, options, forecast, problem, result, plan, costs)
+    if calibration is not None:
+        summary["calibration"] = calibration.summary()
     evaluation, check = None, None
     if options.evaluate:
         progress("evaluate", 0, 1)
@@ -389,6 +391,33 @@ def _versions() -> dict[str, str]:
     return out
 
 
+SERVICE_DEFINITION = (
+    "cycle service level: for every visit in the planned window (horizon and look-ahead), "
+    "the probability that the machine runs dry before its next visit is at most the target; "
+    "the same for the start balance until the first visit; figures on the plan's own paths")
+
+
+def plan_problem(scenario, clean, problem, options: PlanOptions, progress=None):
+    """Solve the schedule, calibrated unless ``options.calibrate`` is off
+    (:func:`planner.evaluate.simulate.calibrated_plan`). Returns ``(problem with its in-sample
+    allowance, result, calibration or None)``."""
+    from planner.evaluate.simulate import calibrated_plan
+    from planner.optimize import solve_plan
+
+    def solve(p):
+        return solve_plan(p, time_limit_s=options.time_limit_s,
+                          progress=None if progress is None else
+                          (lambda done, total: progress("optimize", done, total)))
+
+    if not options.calibrate:
+        return problem, solve(problem), None
+    calibration = calibrated_plan(scenario, clean, problem, solve, jobs=options.jobs,
+                                  origins=options.origins)
+    result = calibration.result
+    result = replace(result, log=tuple(result.log) + calibration.log)
+    return calibration.problem, result, calibration
+
+
 def _summary(scenario: Scenario, options: PlanOptions, forecast: Any, problem: Any,
              result: Any, plan: pd.DataFrame, costs: pd.DataFrame) -> dict[str, Any]:
     target = scenario.max_dry_probability
@@ -417,9 +446,12 @@ def _summary(scenario: Scenario, options: PlanOptions, forecast: Any, problem: A
                     "load_total": round(float(plan["load"].sum()), 2)},
         "costs": {p: round(float(costs[p].sum()), 2) for p in parts},
         "service": {
+            "definition": SERVICE_DEFINITION,
             "max_dry_probability": target,
             "terminals_over_target": int((dry > target + 1e-12).sum()),
             "worst_dry_probability": round(float(dry.max()) if dry.size else 0.0, 4),
+            "mean_dry_before_horizon_end": round(float(
+                result.ledger.dry_probability(problem.horizon_days).mean()), 4),
         },
         "solver": {"status": result.status, "name": result.solver,
                    "objective": round(float(result.objective), 2),

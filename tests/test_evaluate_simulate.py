@@ -56,8 +56,8 @@ def test_terminals_over_the_target_on_fresh_paths_are_flagged():
     problem = small_problem()
     visits = np.zeros((3, 10), bool)
     visits[:, 0] = True
-    # terminal 0 is loaded for about 10 days, terminal 2 for 2 days only
-    loads = np.where(visits, np.array([[30000.0], [30000.0], [6000.0]]), 0.0)
+    # one cycle over the whole window: terminal 0 loaded for it, terminal 2 for 2 days only
+    loads = np.where(visits, np.array([[40000.0], [40000.0], [6000.0]]), 0.0)
     fresh = small_problem(paths=200, seed=1).demand
     check = check_plan(problem, visits, loads, fresh, seed=123)
     assert check.frame["over_target"].tolist() == [False, False, True]
@@ -66,6 +66,28 @@ def test_terminals_over_the_target_on_fresh_paths_are_flagged():
     assert check.summary["paths"] == 200 and check.summary["seed"] == 123
     p = check.frame["dry_probability"].to_numpy()
     np.testing.assert_allclose(check.frame["dry_probability_se"], np.sqrt(p * (1 - p) / 200))
+    # the cycle's dry risk, counted by a plain loop over paths (the cycle is the whole window)
+    ledger = check.ledger
+    plain = [sum(bool((fresh[t, q] > ledger.balance_open[t, q]).any()) for q in range(200)) / 200
+             for t in range(3)]
+    np.testing.assert_allclose(p, plain)
+    # unreachable terminals are not counted over the target
+    kept = check_plan(problem, visits, loads, fresh, reachable=np.array([True, True, False]))
+    assert kept.summary["terminals_over_target"] == 0
+    assert kept.summary["reachable_terminals"] == 2
+
+
+def test_over_target_needs_two_standard_errors():
+    # source of the rule: a binomial estimate p̂ on n paths has standard error √(p̂(1 − p̂)/n)
+    # (common practice); on 4,900 paths 2.6 % is 2.6 SE above 2 %, 2.55 % 2.4 SE, 2.4 % only
+    # 1.8 SE: only the first two are "over"
+    from planner.evaluate.simulate import over_target, sharp_path_count
+
+    flags = over_target(np.array([0.026, 0.0255, 0.024, 0.02]), 4900, 0.02)
+    assert flags.tolist() == [True, True, False, False]
+    assert sharp_path_count(0.02, 60, 42) == 4900          # 0.02 · 0.98 / 0.002²
+    assert sharp_path_count(0.02, 60, 42, least=8000) == 8000
+    assert sharp_path_count(0.02, 100_000, 42) < 4900      # memory cap for huge networks
 
 
 def test_the_simulator_reproduces_the_optimizers_own_cost_on_its_paths():

@@ -44,7 +44,7 @@ from planner.evaluate.baselines import (crew_overruns, days_of_cover, fixed_week
                                         past_visits as past_visits_routine,
                                         trailing_weekday_mean)
 from planner.evaluate.bound import perfect_foresight
-from planner.evaluate.simulate import fresh_seed
+from planner.evaluate.simulate import calibrated_plan, fresh_seed
 
 PLANNER = "planner"
 PLANNER_NAIVE = "planner_naive_forecast"
@@ -299,7 +299,14 @@ def backtest_scenario(scenario, weeks: int, *, options=None,
                          committed=st.committed)
             fc = forecasts.get(policy, forecasts[PLANNER])
             problem = build_problem(sc, fc.paths, fc.dates, tail_days=tail)
-            if policy in (PLANNER, PLANNER_NAIVE):
+            if policy == PLANNER and options.calibrate:
+                result = calibrated_plan(
+                    known, clean, problem,
+                    lambda p: solve_plan(p, time_limit_s=options.time_limit_s),
+                    seed=seed, jobs=options.jobs, origins=options.origins).result
+                plan = (result.visits, result.loads)
+                st.solves.append((result.status, float(result.gap), float(result.time_s)))
+            elif policy in (PLANNER, PLANNER_NAIVE):
                 result = solve_plan(problem, time_limit_s=options.time_limit_s)
                 plan = (result.visits, result.loads)
                 st.solves.append((result.status, float(result.gap), float(result.time_s)))

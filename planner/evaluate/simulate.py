@@ -216,3 +216,20 @@ def out_of_sample_check(scenario, clean, problem, result, *, path_count: int | N
     reachable = np.array([not note.startswith("target") for note in result.notes])
     return check_plan(problem, result.visits, result.loads, demand, seed=s,
                       reachable=reachable)
+
+
+def calibrated_plan(scenario, clean, problem, solve, *, seed: int | None = None,
+                    jobs: int = 1, origins: int = 8):
+    """The plan of ``problem`` with its chance constraint calibrated on validation paths
+    (:mod:`planner.optimize.calibrate`): :func:`sharp_path_count` paths drawn from the fitted
+    forecast with ``fresh_seed(seed, 2)``, independent of the plan's own paths and of the
+    out-of-sample check's. ``solve(problem) -> PlanResult``. Returns a
+    :class:`planner.optimize.calibrate.Calibration`."""
+    from planner.optimize.calibrate import calibrate
+
+    base = int(scenario.seed if seed is None else seed)
+    t_count, p_count, d_count = problem.shape
+    count = sharp_path_count(problem.max_dry_probability, t_count, d_count, least=p_count)
+    validation = fresh_paths(scenario, clean, problem, seed=fresh_seed(base, 2),
+                             path_count=count, jobs=jobs, origins=origins)
+    return calibrate(problem, validation, solve)
