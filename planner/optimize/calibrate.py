@@ -18,9 +18,14 @@ Method here (validate, tighten, re-solve), per terminal:
    significant against the target: ``P(X ≥ k | X ~ Binomial(n, α)) < 1 − CONFIDENCE``
    (one-sided binomial test, :func:`scipy.stats.binom.sf`).
 4. Failing terminals get a smaller allowance, ``min(a − 1, ⌊a · α / k̂⌋)`` with
-   ``k̂ = k / n`` (never below 0), and the network is solved again; at most ``ROUNDS`` rounds.
+   ``k̂ = k / n``, never below half the target's own allowance (``FLOOR_SHARE``: a terminal
+   whose risk sits in a cycle no load can shorten gains nothing from more, and an allowance
+   of 0 asks for the worst of all paths), and the network is solved again; at most
+   ``ROUNDS`` rounds.
 
-Terminals whose target cannot be reached at all (their notes say why) are left as they are.
+Terminals whose target cannot be reached at all (their notes say why) are left as they are,
+and so are the terminals of a depot whose crews could not serve the tighter targets (the
+round is solved again with their previous allowance).
 """
 from __future__ import annotations
 
@@ -34,7 +39,8 @@ from planner.costs import cycle_dry_counts, simulate
 from planner.optimize.problem import PlanningProblem, PlanResult, target_dry_paths
 
 CONFIDENCE = 0.75      # a terminal fails when its excess over the target is this sure
-ROUNDS = 3             # re-solves at most
+ROUNDS = 5             # re-solves at most
+FLOOR_SHARE = 0.5      # the in-sample allowance stays at least this share of the target's
 
 
 @dataclass(frozen=True)
@@ -90,6 +96,12 @@ def failing_terminals(problem: PlanningProblem, result: PlanResult,
     return p_value < 1.0 - CONFIDENCE, counts / n
 
 
+def _crowded(result: PlanResult) -> np.ndarray:
+    """``[T]`` bool: terminals whose depot's crews could not serve every target (their notes
+    say so, :func:`planner.optimize.solve_plan`)."""
+    return np.array(["cannot serve every target" in note for note in result.notes])
+
+
 def calibrate(problem: PlanningProblem, validation: np.ndarray,
               solve: Callable[[PlanningProblem], PlanResult], *,
               rounds: int = ROUNDS) -> Calibration:
@@ -102,21 +114,40 @@ def calibrate(problem: PlanningProblem, validation: np.ndarray,
     current = replace(problem, dry_allowance=allowance.copy())
     result = first = solve(current)
     alpha = float(problem.max_dry_probability)
+    floor = np.floor(FLOOR_SHARE * allowance).astype(np.int64)
     log, tightened, done = [], np.zeros(t_count, bool), 0
+    frozen = np.zeros(t_count, bool)
     for r in range(rounds):
         fail, worst = failing_terminals(current, result, validation)
         fail &= np.array([not note.startswith("target") for note in result.notes])
-        fail &= allowance > 0
+        fail &= (allowance > floor) & ~frozen
         log.append(f"calibration round {r}: {int(fail.sum())} terminal(s) above the target "
                    f"on {validation.shape[1]} validation paths")
         if not fail.any():
             break
+        previous = allowance.copy()
         scaled = np.floor(allowance * alpha / np.maximum(worst, 1e-12)).astype(np.int64)
-        allowance = np.where(fail, np.maximum(np.minimum(allowance - 1, scaled), 0), allowance)
-        tightened |= fail
-        current = replace(problem, dry_allowance=allowance.copy())
-        result = solve(current)
+        allowance = np.where(fail, np.maximum(np.minimum(allowance - 1, scaled), floor),
+                             allowance)
+        trial = replace(problem, dry_allowance=allowance.copy())
+        attempt = solve(trial)
         done += 1
+        # tighten only while the crews allow: a depot whose crews can no longer serve every
+        # target keeps its previous allowance (and is not tightened again)
+        crowded = _crowded(attempt) & ~_crowded(result)
+        if crowded.any():
+            back = np.isin(problem.depot_of, np.unique(problem.depot_of[crowded])) & fail
+            allowance = np.where(back, previous, allowance)
+            frozen |= back
+            fail &= ~back
+            log.append(f"calibration round {r}: the crews of "
+                       f"{len(np.unique(problem.depot_of[crowded]))} depot(s) cannot serve the "
+                       f"tighter targets; their {int(back.sum())} terminal(s) keep the "
+                       "previous allowance")
+            trial = replace(problem, dry_allowance=allowance.copy())
+            attempt = solve(trial)
+        tightened |= fail
+        current, result = trial, attempt
     return Calibration(problem=current, result=result, first=first, rounds=done,
                        tightened=int(tightened.sum()), validation_paths=validation.shape[1],
                        log=tuple(log))

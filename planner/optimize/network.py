@@ -203,7 +203,9 @@ def solve_depot(problem: PlanningProblem, rule: ServiceRule, depot: int, *,
     penalty = _soft_penalty(problem) if soft else None
     batch = terminal.prepare_batch(problem, rule, soft_penalty=penalty)
     rows = np.arange(t_count)
-    tight = 1e-9 if exact else gap_tolerance / 10.0
+    # soft prices inflate the objective: a relative tolerance on it would leave real cost on
+    # the table, so soft depots are solved to the exact tolerances
+    tight = 1e-9 if exact or soft else gap_tolerance / 10.0
     log.append(f"{name}: {t_count} terminals, cycles priced in "
                f"{time.perf_counter() - started:.1f} s")
 
@@ -256,7 +258,8 @@ def solve_depot(problem: PlanningProblem, rule: ServiceRule, depot: int, *,
 
     remaining = max(deadline - time.perf_counter(), 1.0)
     status, chosen, objective, mip_bound = solve_master_mip(
-        pool, t_count, name, crew, solver, remaining, 1e-9 if exact else gap_tolerance / 4)
+        pool, t_count, name, crew, solver, remaining,
+        1e-9 if exact or soft else gap_tolerance / 4)
     if chosen is None:
         if soft:
             raise RuntimeError(f"{name}: no plan respects the crew limits")  # cannot happen
@@ -347,12 +350,16 @@ def _without_soft_prices(batch, visits, levels, objective, bound):
     """Objective and bound of a soft-target depot in plain expected cost.
 
     With ``E`` the priced excess of dry paths of the plan, any plan with no more excess costs
-    at least ``bound − E``."""
-    rows = np.arange(visits.shape[0])
+    at least ``bound − E``; the sum of the terminals' cheapest plans ignoring crews and targets
+    bounds every plan. The larger of the two is reported."""
     from planner.optimize.problem import next_visits
+
+    rows = np.arange(visits.shape[0])
     plans = terminal.Plans(visits, next_visits(visits), levels, np.zeros(visits.shape[0]))
     excess = float(terminal.plan_excess(batch, rows, plans).sum() * batch.soft_penalty)
-    return objective - excess, bound - excess
+    free_batch = terminal.prepare_batch(batch.problem, batch.rule, soft_penalty=0.0)
+    free, _ = terminal.cheapest_plans(free_batch, batch.problem.visit_fee)
+    return objective - excess, max(bound - excess, float(free.value.sum()))
 
 
 # --------------------------------------------------------------------------------------------

@@ -241,12 +241,30 @@ def _summary_section(ctx: _Context, evaluation: Evaluation | None) -> Section:
                                     float(fresh["total"]) if fresh is not None else total)
 
     worst = float(ctx.dry_probability.max()) if ctx.dry_probability.size else 0.0
-    risk = _kv_table([
-        ("Service target (highest dry risk per terminal in the horizon)", _pct(ctx.target)),
-        ("Terminals over the target", _flag_count(service.get("terminals_over_target", over))),
-        ("Highest dry risk of a terminal", _risk(worst, ctx.target)),
-        ("Mean dry risk over terminals", _pct(float(ctx.dry_probability.mean())
-                                              if ctx.dry_probability.size else 0.0)),
+    oos = s.get("out_of_sample") or {}
+    calibration = s.get("calibration") or {}
+    rows = [
+        ("Service target (per visit: the chance of running dry before the next visit)",
+         _pct(ctx.target)),
+        ("Terminals over the target (plan's own paths)",
+         _flag_count(service.get("terminals_over_target", over))),
+        ("Highest cycle dry risk of a terminal", _risk(worst, ctx.target)),
+    ]
+    if oos:
+        rows += [
+            (f"Terminals over the target on {oos.get('paths', 0):,} fresh paths (more than two "
+             "standard errors above it)", _flag_count(oos.get("terminals_over_target", 0))),
+            ("Mean cycle dry risk on fresh paths", _pct(float(oos.get("mean_dry_probability",
+                                                                       math.nan)))),
+        ]
+    if calibration:
+        rows.append(("Calibration (validate, tighten, re-solve)",
+                     esc(f"{calibration.get('terminals_tightened', 0)} terminal(s) tightened in "
+                         f"{calibration.get('rounds', 0)} round(s), cost "
+                         f"{100 * float(calibration.get('cost_increase', 0.0)):+.2f} %")))
+    risk = _kv_table(rows + [
+        ("Mean dry risk over terminals (worst cycle each)",
+         _pct(float(ctx.dry_probability.mean()) if ctx.dry_probability.size else 0.0)),
         ("Expected dry days in the horizon (all terminals)",
          f"{float(ctx.dry_day.sum()):,.2f}" if ctx.dry_day is not None else "—"),
     ], "dry-risk")
@@ -469,7 +487,7 @@ def _terminal_section(ctx: _Context) -> Section:
         facts = [
             f"{n_visits} visit{'s' if n_visits != 1 else ''}, "
             f"{_money_cur(ctx.loads[i].sum(), ctx.currency)} loaded",
-            f"dry risk in the horizon {_risk(ctx.dry_probability[i], ctx.target)}",
+            f"worst cycle dry risk {_risk(ctx.dry_probability[i], ctx.target)}",
         ]
         if costs is not None and tid in costs.index and "total" in costs:
             facts.append(f"expected cost {_money_cur(costs.loc[tid, 'total'], ctx.currency)}")
