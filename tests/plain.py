@@ -46,3 +46,43 @@ def missed_terminals(problem: PlanningProblem, visits: np.ndarray, ledger) -> li
 def meets_target(problem: PlanningProblem, visits: np.ndarray, ledger) -> bool:
     """No terminal misses the service target (:func:`missed_terminals`)."""
     return not missed_terminals(problem, visits, ledger)
+
+
+def expected_cost_plain(problem: PlanningProblem, visits: np.ndarray,
+                        loads: np.ndarray) -> float:
+    """The plan's expected cost summed over terminals, by a day-by-day loop over every
+    terminal and path with the rules of the accounting written out again: a visit at the
+    start of the day (swap: the residual goes back, the balance becomes the load; top-up: the
+    balance becomes min(balance + load, limit), the excess goes back), handling on what is
+    loaded and returned, the fee per visit, then withdrawals; a day is dry when demand exceeds
+    the balance; carry on the balance left at night."""
+    r = problem.rates
+    t_count, p_count, d_count = problem.shape
+    total = 0.0
+    for t in range(t_count):
+        fees = sum(float(problem.visit_fee[t, d]) for d in range(d_count) if visits[t, d])
+        on_paths = 0.0
+        for p in range(p_count):
+            balance = float(problem.start_balance[t])
+            cost = 0.0
+            for d in range(d_count):
+                if visits[t, d]:
+                    load = float(loads[t, d])
+                    if problem.mode == "swap":
+                        back = balance
+                        balance = load
+                    else:
+                        back = max(balance + load - float(problem.limit[t]), 0.0)
+                        balance = min(balance + load, float(problem.limit[t]))
+                    cost += r.handling_per_1000 / 1000.0 * (load + back)
+                demand = float(problem.demand[t, p, d])
+                if demand > balance:
+                    cost += r.dry_day_penalty
+                    cost += r.shortfall_penalty_per_1000 / 1000.0 * (demand - balance)
+                    balance = 0.0
+                else:
+                    balance -= demand
+                cost += r.carry_rate_daily * balance
+            on_paths += cost
+        total += fees + on_paths / p_count
+    return total
