@@ -275,11 +275,12 @@ def evaluate_plan(scenario: Scenario, clean: Any, problem: Any, result: Any,
 
     Returns the routine table (one row per routine: ``routine``, ``kind`` plan | baseline |
     bound, ``total`` and its parts in currency over horizon + tail days, ``dry_probability``
-    = mean over terminals of the share of fresh paths dry within the horizon,
+    = mean over terminals of the worst visit cycle's share of fresh paths that run dry,
     ``terminals_over_target``, ``visits`` in the horizon) and the out-of-sample check.
     """
     from planner.evaluate import days_of_cover, fixed_weekdays, out_of_sample_check, plan_ledger
     from planner.evaluate.bound import perfect_foresight_arrays
+    from planner.evaluate.simulate import cycle_risks, over_target
 
     check = out_of_sample_check(scenario, clean, problem, result, jobs=options.jobs,
                                 origins=options.origins)
@@ -295,11 +296,12 @@ def evaluate_plan(scenario: Scenario, clean: Any, problem: Any, result: Any,
     for name, kind, (visits, loads) in routines:
         ledger = plan_ledger(problem, visits, loads, fresh)
         parts = ledger.parts()
-        dry = ledger.dry_probability(horizon)
+        dry, _ = cycle_risks(ledger, np.asarray(visits, dtype=bool))
         rows.append({"routine": name, "kind": kind,
                      **{c: float(parts[c].sum()) for c in parts.columns},
                      "dry_probability": float(dry.mean()),
-                     "terminals_over_target": int((dry > target + 1e-12).sum()),
+                     "terminals_over_target": int(over_target(dry, fresh.shape[1],
+                                                              target).sum()),
                      "visits": int(np.asarray(visits)[:, :horizon].sum())})
     bound = perfect_foresight_arrays(
         demand=fresh, start_balance=problem.start_balance, limit=problem.limit,
