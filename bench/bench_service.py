@@ -37,7 +37,7 @@ def measure(source) -> dict:
                              path_count=count)
     fresh = fresh_paths(run.scenario, run.clean, problem, seed=fresh_seed(seed, 1),
                         path_count=count)
-    reach = np.array([not note.startswith("target") for note in plain.notes])
+    reach = plain.reachable
     calibration = calibrate(problem, validation,
                             lambda p: solve_plan(p, time_limit_s=60))
     out = {"network": run.scenario.name, "terminals": t_count, "reachable": int(reach.sum()),

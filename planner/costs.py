@@ -236,11 +236,16 @@ def cycle_dry_counts(ledger: Ledger, visits: np.ndarray) -> np.ndarray:
     return out
 
 
-def worst_cycle_dry(ledger: Ledger, visits: np.ndarray) -> np.ndarray:
-    """``[T]`` each terminal's cycle dry risk: the largest share of paths that run dry before
-    the next visit, over the cycles of the planned window (:func:`cycle_dry_counts`)."""
+def cycle_dry_shares(ledger: Ledger, visits: np.ndarray,
+                     rows: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
+    """``(worst [T], every [n])``: each terminal's cycle dry risk (the largest share of paths
+    that run dry before the next visit, over the cycles of the planned window), and the share
+    of every cycle of the terminals ``rows`` (a bool mask; default all), for network means
+    (:func:`cycle_dry_counts`)."""
     counts = cycle_dry_counts(ledger, visits)
-    return counts.max(axis=1, initial=0) / ledger.balance_open.shape[1]
+    paths = ledger.balance_open.shape[1]
+    kept = counts if rows is None else counts[rows]
+    return counts.max(axis=1, initial=0) / paths, kept[kept >= 0] / paths
 
 
 def simulate(visits: np.ndarray, loads: np.ndarray, start_balance: np.ndarray,

@@ -280,7 +280,8 @@ def evaluate_plan(scenario: Scenario, clean: Any, problem: Any, result: Any,
     """
     from planner.evaluate import days_of_cover, fixed_weekdays, out_of_sample_check, plan_ledger
     from planner.evaluate.bound import perfect_foresight_arrays
-    from planner.evaluate.simulate import cycle_risks, over_target
+    from planner.costs import cycle_dry_shares
+    from planner.evaluate.simulate import over_target
 
     check = out_of_sample_check(scenario, clean, problem, result, jobs=options.jobs,
                                 origins=options.origins)
@@ -296,7 +297,7 @@ def evaluate_plan(scenario: Scenario, clean: Any, problem: Any, result: Any,
     for name, kind, (visits, loads) in routines:
         ledger = plan_ledger(problem, visits, loads, fresh)
         parts = ledger.parts()
-        dry, _ = cycle_risks(ledger, np.asarray(visits, dtype=bool))
+        dry, _ = cycle_dry_shares(ledger, np.asarray(visits, dtype=bool))
         rows.append({"routine": name, "kind": kind,
                      **{c: float(parts[c].sum()) for c in parts.columns},
                      "dry_probability": float(dry.mean()),

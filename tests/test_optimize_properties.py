@@ -19,7 +19,7 @@ from hypothesis import strategies as st
 import planner.optimize as optimize
 from planner.costs import CostRates
 from planner.optimize.monolithic import solve_monolithic
-from planner.costs import worst_cycle_dry
+from planner.costs import cycle_dry_shares
 from planner.optimize.problem import PlanningProblem, evaluate_plan
 from plain import meets_target, missed_terminals
 
@@ -128,7 +128,7 @@ def test_plan_keeps_the_rules(problem):
     # the reported figures are the accounting of the plan
     ledger = evaluate_plan(problem, visits, loads)
     assert result.objective == pytest.approx(ledger.expected_cost().sum(), rel=1e-9)
-    assert np.allclose(result.dry_probability, worst_cycle_dry(ledger, visits))
+    assert np.allclose(result.dry_probability, cycle_dry_shares(ledger, visits)[0])
     after_visit = np.where(visits[:, None, :], ledger.balance_open, 0.0)
     assert (after_visit <= problem.limit[:, None, None] + 1e-9).all()   # balance after a visit
     # service target: met, or (when the depot's crews cannot serve every terminal's allowance)

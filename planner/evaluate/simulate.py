@@ -23,7 +23,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from planner.costs import Ledger, cycle_dry_counts, simulate
+from planner.costs import Ledger, cycle_dry_shares, simulate
 
 SHARP_SE = 0.002            # standard error aimed at, at the target (0.2 points)
 MOST_FRESH_VALUES = 60_000_000   # terminals × paths × days priced at once at most
@@ -46,15 +46,6 @@ def over_target(share: np.ndarray, paths: int, target: float) -> np.ndarray:
     share = np.asarray(share, dtype=float)
     se = np.sqrt(share * (1.0 - share) / max(int(paths), 1))
     return share > target + OVER_SE * se + 1e-12
-
-
-def cycle_risks(ledger: Ledger, visits: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """``(worst [T], cycles [n])``: each terminal's worst cycle dry risk, and the dry risk of
-    every cycle of every terminal (for the network mean)."""
-    counts = cycle_dry_counts(ledger, visits)
-    paths = ledger.balance_open.shape[1]
-    worst = counts.max(axis=1, initial=0) / paths
-    return worst, counts[counts >= 0] / paths
 
 
 def fresh_seed(seed: int, stream: int = 1) -> int:
@@ -118,10 +109,10 @@ def check_plan(problem, visits: np.ndarray, loads: np.ndarray, demand: np.ndarra
     parts = fresh.parts()
     paths = demand.shape[1]
     target = float(problem.max_dry_probability)
-    dry, _ = cycle_risks(fresh, visits)
-    dry_own, _ = cycle_risks(own, visits)
-    reach = (np.ones(len(dry), bool) if reachable is None
+    reach = (np.ones(len(visits), bool) if reachable is None
              else np.asarray(reachable, dtype=bool))
+    dry, cycles = cycle_dry_shares(fresh, visits, reach)
+    dry_own, cycles_own = cycle_dry_shares(own, visits, reach)
     over = over_target(dry, paths, target) & reach
     frame = pd.DataFrame({
         "terminal_id": list(problem.terminal_ids),
@@ -138,8 +129,6 @@ def check_plan(problem, visits: np.ndarray, loads: np.ndarray, demand: np.ndarra
         "over_target": over,
         "reachable": reach,
     })
-    cycles = _cycle_shares(fresh, visits, reach)
-    cycles_own = _cycle_shares(own, visits, reach)
     cost, cost_in = float(frame["expected_cost"].sum()), float(
         frame["expected_cost_in_sample"].sum())
     summary = {
@@ -161,12 +150,6 @@ def check_plan(problem, visits: np.ndarray, loads: np.ndarray, demand: np.ndarra
         "expected_dry_days": round(float(frame["expected_dry_days"].sum()), 4),
     }
     return OutOfSampleCheck(frame=frame, summary=summary, ledger=fresh, demand=demand)
-
-
-def _cycle_shares(ledger: Ledger, visits: np.ndarray, rows: np.ndarray) -> np.ndarray:
-    """Dry risk of every visit cycle of the terminals ``rows`` (bool mask)."""
-    counts = cycle_dry_counts(ledger, visits)[rows]
-    return counts[counts >= 0] / ledger.balance_open.shape[1]
 
 
 def fresh_paths(scenario, clean, problem, *, seed: int, path_count: int | None = None,
@@ -213,9 +196,8 @@ def out_of_sample_check(scenario, clean, problem, result, *, path_count: int | N
                                            least=p_count)
     demand = fresh_paths(scenario, clean, problem, seed=s, path_count=count, jobs=jobs,
                          origins=origins)
-    reachable = np.array([not note.startswith("target") for note in result.notes])
     return check_plan(problem, result.visits, result.loads, demand, seed=s,
-                      reachable=reachable)
+                      reachable=result.reachable)
 
 
 def calibrated_plan(scenario, clean, problem, solve, *, seed: int | None = None,

@@ -119,7 +119,7 @@ def calibrate(problem: PlanningProblem, validation: np.ndarray,
     frozen = np.zeros(t_count, bool)
     for r in range(rounds):
         fail, worst = failing_terminals(current, result, validation)
-        fail &= np.array([not note.startswith("target") for note in result.notes])
+        fail &= result.reachable
         fail &= (allowance > floor) & ~frozen
         log.append(f"calibration round {r}: {int(fail.sum())} terminal(s) above the target "
                    f"on {validation.shape[1]} validation paths")

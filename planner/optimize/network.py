@@ -37,8 +37,9 @@ from dataclasses import dataclass, field, replace
 import numpy as np
 
 from planner.optimize import milp, terminal
-from planner.optimize.problem import (PlanningProblem, PlanResult, ServiceRule,
-                                      result_from_plan, service_rule)
+from planner.costs import cycle_dry_counts
+from planner.optimize.problem import (PlanningProblem, PlanResult, ServiceRule, evaluate_plan,
+                                      next_visits, result_from_plan, service_rule)
 
 GAP_TOLERANCE = 0.005
 MIN_ROUNDS = 4
@@ -332,9 +333,6 @@ def _soft_retry(problem, rule, depot, deadline, solver, gap_tolerance, exact, lo
 def _committed_only(batch: terminal.TerminalBatch, t: int) -> tuple[np.ndarray, np.ndarray,
                                                                      float]:
     """Terminal ``t``'s plan with its committed visits only, and its cost with soft targets."""
-    from planner.costs import cycle_dry_counts
-    from planner.optimize.problem import evaluate_plan
-
     problem = batch.problem
     visits = problem.committed[t].copy()
     levels = np.where(visits, np.rint(np.nan_to_num(problem.fixed_load[t])
@@ -352,8 +350,6 @@ def _without_soft_prices(batch, visits, levels, objective, bound):
     With ``E`` the priced excess of dry paths of the plan, any plan with no more excess costs
     at least ``bound − E``; the sum of the terminals' cheapest plans ignoring crews and targets
     bounds every plan. The larger of the two is reported."""
-    from planner.optimize.problem import next_visits
-
     rows = np.arange(visits.shape[0])
     plans = terminal.Plans(visits, next_visits(visits), levels, np.zeros(visits.shape[0]))
     excess = float(terminal.plan_excess(batch, rows, plans).sum() * batch.soft_penalty)

@@ -35,7 +35,8 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
-from planner.costs import CostRates, Ledger, cycle_dry_counts, cycle_ends, simulate
+from planner.costs import (CostRates, Ledger, cycle_dry_counts, cycle_dry_shares, cycle_ends,
+                           simulate)
 
 WEEKDAY_NAMES = ("Mon", "Tue", "Wed", "Thu", "Fri", "Sat", "Sun")
 
@@ -114,6 +115,12 @@ class PlanResult:
     ledger: Ledger
     iterations: int = 0
     log: tuple[str, ...] = field(default=())
+
+    @property
+    def reachable(self) -> np.ndarray:
+        """``[T]`` bool: the terminal's target can be met at all (its note does not say it
+        cannot; crews too few for every target still count as reachable)."""
+        return np.array([not note.startswith("target") for note in self.notes], dtype=bool)
 
 
 # --------------------------------------------------------------------------------------------
@@ -362,12 +369,10 @@ def result_from_plan(problem: PlanningProblem, visits: np.ndarray, loads: np.nda
     gap = relative_gap(objective, bound)
     if notes is None:
         notes = target_notes(problem)
-    counts = cycle_dry_counts(ledger, visits)
     return PlanResult(visits=visits, loads=loads, status=status, objective=objective,
                       bound=float(bound), gap=gap, solver=solver, time_s=float(time_s),
-                      notes=tuple(notes),
-                      dry_probability=counts.max(axis=1) / problem.shape[1], ledger=ledger, iterations=iterations,
-                      log=tuple(log))
+                      notes=tuple(notes), dry_probability=cycle_dry_shares(ledger, visits)[0],
+                      ledger=ledger, iterations=iterations, log=tuple(log))
 
 
 def relative_gap(objective: float, bound: float) -> float:
