@@ -21,7 +21,7 @@ import numpy as np
 
 sys.path.insert(0, os.path.join(os.path.dirname(__file__), os.pardir))
 
-from planner.optimize.network import solve_plan  # noqa: E402
+from planner.optimize.schedule import solve_plan  # noqa: E402
 from planner.optimize.synthetic import synthetic_problem  # noqa: E402
 from planner.pipeline import PlanOptions  # noqa: E402
 

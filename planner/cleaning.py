@@ -1,6 +1,6 @@
 """Clean the dispense history into one regular daily demand series per terminal.
 
-Steps per terminal (DESIGN §4, "clean"):
+Steps per terminal (README, "How a plan is made", step 2):
 
 1. **Daily grid** from the terminal's first to its last dispense date (all dates lie before the
    first planning day; the scenario loader drops later rows). Days without a row are ``gap``,

@@ -521,13 +521,12 @@ def compare_scenario(scenario, variants: list[Variant], *, options=None, clean=N
     ``result.summary["headline"]``, and writes the run folder with :func:`write_compare`.
     Raises :class:`~planner.errors.InputError` for bad overrides (before any forecasting).
     """
-    from planner.evaluate.backtest import with_options
     from planner.evaluate.simulate import fresh_seed, plan_ledger
     from planner.optimize import build_problem, solve_plan
-    from planner.pipeline import PlanOptions
+    from planner.options import PlanOptions
 
     options = options or PlanOptions()
-    scenario = with_options(scenario, options)
+    scenario = options.apply(scenario)
     scenarios = {base_name: scenario}
     labels = {base_name: ""}
     for v in variants:

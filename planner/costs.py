@@ -1,4 +1,4 @@
-"""The one accounting of a day at a cash machine (DESIGN §4).
+"""The one accounting of a day at a cash machine (README, "How a plan is made").
 
 Every stage that costs anything — the optimizer, the plan simulator, the backtest, the baselines
 and the perfect-foresight bound — uses :func:`simulate`, so figures agree everywhere.

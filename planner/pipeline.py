@@ -1,6 +1,6 @@
 """Scenario → run folder: the one pipeline function that the CLI and the Python API call.
 
-The stages read top to bottom (DESIGN §4): load → clean → forecast → paths → optimize →
+The stages read top to bottom (README, "How a plan is made"): load → clean → forecast → paths → optimize →
 evaluate → report. Each stage takes data and returns data; nothing is kept between calls.
 """
 from __future__ import annotations
@@ -14,44 +14,8 @@ import numpy as np
 import pandas as pd
 
 from planner import __version__
+from planner.options import PlanOptions
 from planner.scenario import Scenario, load_scenario
-
-# The plan looks further ahead than it reports, so that its end does not cut the last cycle
-# short (DESIGN §4: plan a longer horizon and keep the first part): at least LOOKAHEAD_DAYS
-# days in all and at least MIN_TAIL_DAYS after the horizon. Six weeks is about 1.5 × the
-# longest cycle of the demo's quiet machines (4 weeks). Measured in the 12-week replay of the
-# demo (bench/bench_backtest.py --tail N): 7 tail days 153,161 EUR and 5 dry days, 14 days
-# 145,686 and 3, 28 days 145,100 and 3, 42 days 145,010 and 4.
-LOOKAHEAD_DAYS = 42
-MIN_TAIL_DAYS = 7
-
-
-@dataclass(frozen=True)
-class PlanOptions:
-    """Overrides of the scenario's settings for one run (None keeps the scenario's value)."""
-
-    horizon_days: int | None = None
-    path_count: int | None = None
-    seed: int | None = None
-    jobs: int = 1
-    time_limit_s: float = 60.0
-    tail_days: int | None = None             # None: see tail_for
-    origins: int = 8
-    evaluate: bool = True
-    calibrate: bool = True                   # calibrate the chance constraint on fresh paths
-    diagnose: bool = True
-    report: bool = True
-    backtest_weeks: int = 0                  # > 0: also replay that many past weeks
-    what_if: tuple[str, ...] = ()            # --set texts, one what-if variant each
-    variant_files: tuple[str | Path, ...] = ()
-
-    def tail_for(self, horizon_days: int) -> int:
-        """Days planned after a horizon of ``horizon_days``: ``tail_days`` when given, else
-        ``max(MIN_TAIL_DAYS, LOOKAHEAD_DAYS − horizon_days)``."""
-        if self.tail_days is not None:
-            return int(self.tail_days)
-        return max(MIN_TAIL_DAYS, LOOKAHEAD_DAYS - int(horizon_days))
-
 
 @dataclass(frozen=True)
 class CheckResult:
@@ -167,17 +131,6 @@ class PlanRun:
                 if t.get("note")]
 
 
-def _apply_options(scenario: Scenario, options: PlanOptions) -> Scenario:
-    changes: dict[str, Any] = {}
-    if options.horizon_days is not None:
-        changes["horizon_days"] = int(options.horizon_days)
-    if options.path_count is not None:
-        changes["path_count"] = int(options.path_count)
-    if options.seed is not None:
-        changes["seed"] = int(options.seed)
-    return replace(scenario, **changes) if changes else scenario
-
-
 Progress = Callable[[str, int, int], None]
 """``progress(stage, done, total)``: called as a stage advances (stage names: clean, forecast,
 optimize, evaluate)."""
@@ -206,7 +159,7 @@ def plan_scenario(source: str | Path | Scenario, *, options: PlanOptions | None 
 
         variants = parse_variants(options.what_if, options.variant_files)  # fail early
     scenario = source if isinstance(source, Scenario) else load_scenario(source)
-    scenario = _apply_options(scenario, options)
+    scenario = options.apply(scenario)
 
     progress("clean", 0, 1)
     clean = clean_history(scenario)
@@ -502,7 +455,7 @@ def forecast_only(source: str | Path | Scenario, *, options: PlanOptions | None 
 
     options = replace(options or PlanOptions(tail_days=0), **overrides)
     scenario = source if isinstance(source, Scenario) else load_scenario(source)
-    scenario = _apply_options(scenario, options)
+    scenario = options.apply(scenario)
     clean = clean_history(scenario)
     forecast = forecast_scenario(scenario, clean,
                                  horizon_days=scenario.horizon_days
@@ -561,7 +514,7 @@ def run_diagnose(source: str | Path | Scenario, out_dir: str | Path, *,
 
     options = options or PlanOptions(tail_days=0)
     scenario = source if isinstance(source, Scenario) else load_scenario(source)
-    scenario = _apply_options(scenario, options)
+    scenario = options.apply(scenario)
     if terminal_ids:
         unknown = [t for t in terminal_ids if t not in scenario.terminals.index]
         if unknown:

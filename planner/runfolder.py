@@ -1,4 +1,4 @@
-"""Write a run folder whole or not at all, readable by the owner only (DESIGN §3).
+"""Write a run folder whole or not at all, readable by the owner only (README, "Outputs").
 
 Files are first written into a hidden staging folder beside the target, then the staging folder
 is renamed onto the target in one step. A process killed while writing leaves at most a hidden

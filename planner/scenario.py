@@ -1,4 +1,4 @@
-"""Load and validate a scenario folder (DESIGN §2) into one typed :class:`Scenario`.
+"""Load and validate a scenario folder (README, "The scenario folder") into one typed :class:`Scenario`.
 
 Validation happens here, once, at the edge: every problem of a file is collected and raised
 together as an :class:`~planner.errors.InputError` so a user can fix them in one pass (files are

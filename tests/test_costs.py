@@ -1,4 +1,4 @@
-"""The day's accounting against small cases computed by hand (rules: DESIGN §4)."""
+"""The day's accounting against small cases computed by hand (rules: planner.costs)."""
 from __future__ import annotations
 
 import numpy as np

@@ -290,8 +290,8 @@ def test_dw_statistic_and_verdicts() -> None:
 
 def test_breusch_godfrey_equals_n_r_squared() -> None:
     # LM = n R² of the residuals on the regressors and their own lags 1..7 (pre-sample lags
-    # set to zero), chi²(7) (Breusch 1978; Godfrey 1978). The recalled uschange figure in
-    # REFERENCES.md is not checked: its data set does not ship in an installed package.
+    # set to zero), chi²(7) (Breusch 1978; Godfrey 1978). A published figure on a textbook data
+    # set is not checked here: that data set does not ship in an installed package.
     r = ar1(300, 0.25, seed=12)
     n, p = len(r), 7
     e = r - r.mean()                                   # residuals of OLS on a constant

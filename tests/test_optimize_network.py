@@ -10,7 +10,7 @@ import pandas as pd
 import pytest
 
 from planner.costs import CostRates, simulate
-from planner.optimize.network import solve_plan
+from planner.optimize.schedule import solve_plan
 from planner.costs import cycle_dry_counts, cycle_dry_shares
 from planner.optimize.problem import (PlanningProblem, evaluate_plan, service_rule,
                                       target_dry_paths)

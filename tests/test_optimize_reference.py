@@ -2,8 +2,8 @@
 
 - The fast solver (`planner.optimize.solve_plan`, a decomposition) against the monolithic
   sample-average MILP (`planner.optimize.monolithic`) and against brute-force enumeration of
-  visit patterns × load levels: all three must agree on the optimum (DESIGN §5: "the result
-  must equal the monolithic model's optimum on instances small enough to solve both").
+  visit patterns × load levels: all three must agree on the optimum on instances small enough
+  to solve them all.
 - Baumol (1952), Wagner & Whitin (1958) and the newsvendor critical fractile (Arrow, Harris &
   Marschak 1951), reproduced through our optimizer; normal quantiles from Abramowitz & Stegun.
 """

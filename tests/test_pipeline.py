@@ -173,6 +173,7 @@ def test_progress_reports_every_stage_up_to_its_total():
 
 
 def test_the_plan_looks_six_weeks_ahead_and_at_least_a_week_past_the_horizon():
-    # DESIGN §4: plan a longer horizon and keep the first part (planner.pipeline.LOOKAHEAD_DAYS)
+    # README, "How a plan is made", step 5: plan a longer horizon and keep the first part
+    # (planner.options.LOOKAHEAD_DAYS)
     assert [PlanOptions().tail_for(h) for h in (7, 14, 21, 35, 40)] == [35, 28, 21, 7, 7]
     assert PlanOptions(tail_days=3).tail_for(14) == 3

@@ -308,7 +308,7 @@ def test_write_report_into_a_run_folder(small, tmp_path):
         size = write_report(small, writer)
     path = out / "report.html"
     assert path.stat().st_size == size > 0
-    assert stat.S_IMODE(path.stat().st_mode) == 0o600   # plans are confidential (DESIGN §3)
+    assert stat.S_IMODE(path.stat().st_mode) == 0o600   # plans are confidential (README, "Outputs")
     assert path.read_text(encoding="utf-8").startswith("<!DOCTYPE html>")
 
 

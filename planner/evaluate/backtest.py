@@ -247,10 +247,10 @@ def backtest_scenario(scenario, weeks: int, *, options=None,
     from planner.errors import InputError, Problem
     from planner.forecast import forecast_scenario
     from planner.optimize import build_problem, solve_plan
-    from planner.pipeline import PlanOptions
+    from planner.options import PlanOptions
 
     options = options or PlanOptions()
-    scenario = with_options(scenario, options)
+    scenario = options.apply(scenario)
     baselines = default_baselines() if baselines is None else dict(baselines)
     if past_visits is not None:
         baselines["past_visits"] = partial(_past_routine, visits=past_visits)
@@ -359,14 +359,6 @@ def _bound_parts(problem, pf, emergency_fee: float) -> dict[str, float]:
                shortfall=float(ledger.shortfall.sum()),
                emergency_visits=int((visits & ~problem.allowed).sum()))
     return out
-
-
-def with_options(scenario, options):
-    """The scenario with the horizon, path count and seed of ``options`` where they are set."""
-    changes = {key: int(getattr(options, attr)) for key, attr in (
-        ("horizon_days", "horizon_days"), ("path_count", "path_count"), ("seed", "seed"))
-        if getattr(options, attr, None) is not None}
-    return replace(scenario, **changes) if changes else scenario
 
 
 def _past_routine(problem, *, visits: pd.DataFrame, daily_demand=None):

@@ -22,7 +22,7 @@ parameters; learned attributes end in ``_``):
   per day).
 - ``residuals_``: in-sample one-step residuals on the model's scale (log1p for the log models).
 
-Withdrawals are multiplicative (DESIGN §5), so the models work on ``z = log1p(y)`` and map
+Withdrawals are multiplicative (README, "How a plan is made", step 4), so the models work on ``z = log1p(y)`` and map
 back with ``expm1`` (monotone, so quantiles map exactly; the result is clipped at 0).
 
 The three candidates (:data:`CANDIDATES`) and an extra:

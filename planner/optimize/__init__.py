@@ -1,9 +1,10 @@
-"""The schedule: visit days and loads per terminal under crew limits (DESIGN §5).
+"""The schedule: visit days and loads per terminal under crew limits (README, "How a plan is made", step 5).
 
 - :mod:`planner.optimize.problem` — :class:`PlanningProblem`, :class:`PlanResult`,
   :func:`build_problem` and the rules every solver shares.
-- :mod:`planner.optimize.network` — :func:`solve_plan`, the decomposition by depot (crew
-  prices, master assignment) over exact per-terminal plans.
+- :mod:`planner.optimize.schedule` — :func:`solve_plan`, the one entry point for both modes.
+- :mod:`planner.optimize.network` — swap: the decomposition by depot (crew prices, master
+  assignment) over exact per-terminal plans.
 - :mod:`planner.optimize.cycles` and :mod:`planner.optimize.terminal` — swap cycle costs for
   every load level; one terminal's cheapest plan at given day prices.
 - :mod:`planner.optimize.topup` — the top-up mode.
@@ -23,7 +24,7 @@ __all__ = ["PlanningProblem", "PlanResult", "build_problem", "solve_plan", "plan
 def __getattr__(name: str):
     # the solver pulls in PuLP; load it on first use only
     if name == "solve_plan":
-        from planner.optimize.network import solve_plan
+        from planner.optimize.schedule import solve_plan
 
         return solve_plan
     if name in ("plan_frame", "orders_frame"):

@@ -406,30 +406,15 @@ def run_depot_tasks(task: Callable, tasks: list, workers: int, t_count: int,
     return results
 
 
-def solve_plan(problem: PlanningProblem, *, time_limit_s: float = 60.0, solver: str = "highs",
-               gap_tolerance: float = GAP_TOLERANCE, exact: bool | None = None,
+def solve_swap(problem: PlanningProblem, *, time_limit_s: float = 60.0, solver: str = "highs",
+               gap_tolerance: float = GAP_TOLERANCE, exact: bool = False,
                jobs: int | None = None,
                progress: Callable[[int, int], None] | None = None) -> PlanResult:
-    """Plan visits and loads for every terminal of ``problem`` (see the module text).
-
-    ``solver``: ``"highs"`` (CBC when HiGHS is not installed) or ``"cbc"``. ``exact``: prove
-    optimality to ~1e-9 instead of ``gap_tolerance`` (default: on for ≤ 20 terminals).
-    ``jobs``: worker processes for the depots (default: the CPUs, at most the depots).
-    ``progress(terminals_done, terminals)`` is called as each depot's plan is ready.
-    The result's objective is the simulated expected cost of the plan; never raises for an
-    unreachable service target (the notes say why per terminal).
-    """
+    """Plan a swap-mode problem (see the module text and
+    :func:`planner.optimize.schedule.solve_plan`, which chooses the mode)."""
     started = time.perf_counter()
     deadline = started + time_limit_s
     t_count, _, d_count = problem.shape
-    if exact is None:
-        exact = t_count <= 20
-    if problem.mode != "swap":
-        from planner.optimize.topup import solve_topup
-
-        return solve_topup(problem, time_limit_s=time_limit_s, solver=solver,
-                           gap_tolerance=gap_tolerance, exact=exact, jobs=jobs,
-                           progress=progress)
     notes = [""] * t_count
     depots = [k for k in range(len(problem.depots)) if (problem.depot_of == k).any()]
     sizes = {k: int((problem.depot_of == k).sum()) for k in depots}

@@ -58,7 +58,8 @@ import numpy as np
 
 from planner.costs import cycle_dry_counts, simulate
 from planner.optimize import milp, terminal
-from planner.optimize.network import (ColumnPool, _soft_penalty, solve_depot,
+from planner.optimize.network import (ColumnPool, _soft_penalty, depot_task_setup,
+                                      run_depot_tasks, solve_depot,
                                       solve_master_lp, solve_master_mip)
 from planner.optimize.problem import (PlanningProblem, PlanResult, ServiceRule, next_visits,
                                       result_from_plan, service_rule)
@@ -251,7 +252,6 @@ _WORK: dict = {}
 
 
 def _depot_task(args):
-    from planner.optimize.network import depot_task_setup
 
     k, deadline, members, sub, rule, notes = depot_task_setup(args, _WORK)
     return (k, members, notes) + _solve_depot(sub, rule, k, deadline, _WORK["solver"],
@@ -265,7 +265,6 @@ def solve_topup(problem: PlanningProblem, *, time_limit_s: float = 60.0, solver:
     """Plan a top-up network (see the module text). Depots run side by side in worker
     processes like swap; ``progress(terminals_done, terminals)`` as each depot is ready.
     Never raises for unreachable targets."""
-    from planner.optimize.network import run_depot_tasks
 
     started = time.perf_counter()
     t_count, _, d_count = problem.shape

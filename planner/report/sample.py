@@ -28,7 +28,7 @@ MODELS = ("seasonal naive", "ETS", "SARIMAX")
 
 def write_sample_scenario(folder: Path, *, terminals: int = 6, seed: int = 7,
                           history_days: int = 140, horizon_days: int = 14) -> Path:
-    """Write an invented scenario folder (input contract of DESIGN §2) and return its path."""
+    """Write an invented scenario folder (README, "The scenario folder") and return its path."""
     rng = np.random.default_rng(seed)
     folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)

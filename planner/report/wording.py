@@ -1,4 +1,4 @@
-"""Fixed wording shared by the HTML report and the spreadsheet (DESIGN §7 for the cautions)."""
+"""Fixed wording shared by the HTML report and the spreadsheet (README, "Cautions")."""
 
 CAUTIONS = (
     "Plans are decision support: a person reviews every plan before any dispatch.",
