@@ -66,6 +66,6 @@ def main(sources) -> None:
 
 
 if __name__ == "__main__":
-    args = sys.argv[1:] or [demo_path(), "planner/demo/holdout/saltreach",
-                            "planner/demo/holdout/brannock"]
+    args = sys.argv[1:] or [demo_path(), demo_path("holdout/saltreach"),
+                            demo_path("holdout/brannock")]
     main(args)

@@ -5,6 +5,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
+from planner.demo import demo_path
 from planner.calendar import (
     FEATURE_COLUMNS,
     business_day,
@@ -157,7 +158,7 @@ def test_empty_dates() -> None:
 
 
 def test_tiny_scenario_calendar() -> None:
-    scenario = load_scenario("planner/demo/tiny")
+    scenario = load_scenario(demo_path("tiny"))
     dates = pd.date_range(scenario.dispense["date"].min(), scenario.start_date, freq="D")
     f = calendar_features(dates, scenario.calendar)
     assert f.at[T("2026-10-03"), "holiday"] == 1.0

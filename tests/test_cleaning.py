@@ -7,10 +7,11 @@ import numpy as np
 import pandas as pd
 import pytest
 
+from planner.demo import demo_path
 from planner.cleaning import CleanHistory, _tobit, clean_history
 from planner.scenario import CalendarSettings, Scenario, load_scenario
 
-TINY = load_scenario("planner/demo/tiny")
+TINY = load_scenario(demo_path("tiny"))
 WEEK = np.array([0.9, 0.9, 1.0, 1.1, 1.4, 1.5, 0.5])   # Mon … Sun multipliers of demand
 START = pd.Timestamp("2025-09-01")                       # a Monday
 

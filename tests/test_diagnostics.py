@@ -9,6 +9,7 @@ import pandas as pd
 import pytest
 from scipy import stats
 
+from planner.demo import demo_path
 from planner.cleaning import clean_history
 from planner.diagnostics import (
     CONFLICTING,
@@ -322,7 +323,7 @@ def test_residual_tests_with_a_design() -> None:
 
 
 def test_diagnose_scenario_writes_table_and_pages(tmp_path) -> None:
-    scenario = load_scenario("planner/demo/tiny")
+    scenario = load_scenario(demo_path("tiny"))
     clean = clean_history(scenario)
     resid = {"BRH-002": np.random.default_rng(15).normal(size=84)}
     out = tmp_path / "diag"
@@ -352,7 +353,7 @@ def test_diagnose_scenario_writes_table_and_pages(tmp_path) -> None:
 
 
 def test_diagnose_scenario_without_output() -> None:
-    scenario = load_scenario("planner/demo/tiny")
+    scenario = load_scenario(demo_path("tiny"))
     results = diagnose_scenario(scenario, clean_history(scenario))
     assert list(results) == ["BRH-001", "BRH-002", "BRH-003"]
     table = results["BRH-003"].table()
