@@ -19,8 +19,11 @@ Steps per terminal (README, "How a plan is made", step 2):
    contributes its normal density, a ``dry`` day the probability ``P(z ≥ observed)``. Fitting
    dry days as if they were true demand would bias every forecast low; dropping them would too,
    because machines run dry on the high days.
-3. **Outliers**: Tukey fences (1.5 × IQR beyond the quartiles; common practice) on the
-   calendar-adjusted log series, i.e. the residuals ``z - fitted`` of the profile model. Fit and
+3. **Outliers**: the modified z-score of Iglewicz & Hoaglin (1993, *How to Detect and Handle
+   Outliers*), ``M = 0.6745 · (r − median(r)) / MAD(r)``, with their published threshold
+   ``|M| > 3.5``, on the calendar-adjusted log series, i.e. the residuals ``r = z - fitted``
+   of the profile model. The scale is seasonal: median and MAD per weekday where the weekday
+   has at least ``_MIN_SCALE_DAYS`` exact days, else over all days. Fit and
    flagging alternate until the flagged set no longer changes (at most five rounds), each fit
    leaving the flagged days out, so a gross error cannot hide itself by pulling the fit. Dry
    days can only be upper outliers (a low dry amount is expected: the machine was empty).
@@ -46,7 +49,7 @@ from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
-from scipy import special
+from scipy import special, stats
 
 from planner.calendar import calendar_features
 from planner.scenario import Scenario
@@ -57,7 +60,10 @@ FLAGS = ("ok", "gap", "down", "dry", "outlier")
 _CALENDAR_TERMS = ("payday", "payday_next", "holiday", "holiday_eve", "holiday_after")
 _KNOT_DAYS = 42        # spacing of the level spline's knots
 _MIN_OCCURRENCES = 3   # a dummy needs this many usable days to be estimated
-_TUKEY_K = 1.5         # Tukey fences (common practice)
+_Z_LIMIT = 3.5         # modified z-score threshold (Iglewicz & Hoaglin 1993)
+_Z_FACTOR = 0.6745     # the normal's 0.75 quantile: MAD / 0.6745 estimates σ
+_MIN_SCALE_DAYS = 20   # exact days a weekday needs for a scale of its own
+_SERIES_ALPHA = 0.05   # chance of a false flag in a genuine series (Bonferroni over its days)
 _MAX_ROUNDS = 5
 _MIN_DAYS = 3          # below this many usable days no profile model is fitted
 
@@ -280,15 +286,47 @@ def _profile(z: np.ndarray, censored: np.ndarray, usable: np.ndarray,
         X = _reduced_design(dates, feats, t, fit, fit & ~censored)
         beta, s = _tobit(X[fit], z[fit], censored[fit])
         mu = X @ beta
-        resid = z - mu
+        score = modified_z(z - mu, usable & ~censored, dates.day_of_week.to_numpy())
         exact = usable & ~censored
-        q1, q3 = np.quantile(resid[exact], [0.25, 0.75])
-        low, high = q1 - _TUKEY_K * (q3 - q1), q3 + _TUKEY_K * (q3 - q1)
-        new = (exact & ((resid < low) | (resid > high))) | (usable & censored & (resid > high))
+        limit = z_limit(int(usable.sum()))
+        new = (exact & (np.abs(score) > limit)) | (usable & censored & (score > limit))
         if np.array_equal(new, outlier):
             break
         outlier = new
     return mu, float(s), outlier
+
+
+def z_limit(days: int) -> float:
+    """The flagging threshold for a series of ``days`` days: Iglewicz & Hoaglin's 3.5, raised to
+    the Bonferroni bound ``Φ⁻¹(1 − α / (2 n))`` with ``α = _SERIES_ALPHA`` when the series is
+    long, so that a genuine series of any length gets a false flag with probability at most
+    about ``α`` (3.98 for two years of days)."""
+    return max(_Z_LIMIT, float(stats.norm.ppf(1.0 - _SERIES_ALPHA / (2.0 * max(days, 1)))))
+
+
+def modified_z(resid: np.ndarray, exact: np.ndarray, season: np.ndarray) -> np.ndarray:
+    """Modified z-scores ``0.6745 · (r − median) / MAD`` of every day's residual (Iglewicz &
+    Hoaglin 1993), median and MAD taken over the ``exact`` days of the day's ``season`` (the
+    weekday) when it has at least ``_MIN_SCALE_DAYS`` of them, else over all exact days. A
+    zero MAD (more than half the residuals equal) falls back to the mean absolute deviation
+    times 1.2533 (their rule for that case)."""
+    score = np.zeros(len(resid))
+
+    def scale(values: np.ndarray) -> tuple[float, float]:
+        centre = float(np.median(values))
+        mad = float(np.median(np.abs(values - centre)))
+        if mad > 0:
+            return centre, mad / _Z_FACTOR
+        mean_ad = float(np.mean(np.abs(values - centre)))
+        return centre, max(mean_ad * 1.2533, 1e-12)
+
+    overall = scale(resid[exact]) if exact.any() else (0.0, 1.0)
+    for s in np.unique(season):
+        days = season == s
+        own = exact & days
+        centre, spread = scale(resid[own]) if own.sum() >= _MIN_SCALE_DAYS else overall
+        score[days] = (resid[days] - centre) / spread
+    return score
 
 
 def _reduced_design(dates: pd.DatetimeIndex, feats: pd.DataFrame, t: np.ndarray,

@@ -273,3 +273,31 @@ def test_very_short_history_without_model() -> None:
     assert d["expected"].isna().all()
     assert d["demand"].tolist() == [100.0, 75.0, 50.0]
     assert d["flag"].tolist() == ["ok", "down", "dry"]
+
+
+def test_modified_z_score_against_scipy():
+    # Iglewicz & Hoaglin (1993): M = 0.6745 (x − median) / MAD; scipy's
+    # median_abs_deviation(scale="normal") is MAD / 0.6745 (reference library)
+    from scipy import stats
+
+    from planner.cleaning import modified_z, z_limit
+
+    rng = np.random.default_rng(5)
+    x = rng.standard_t(4, 400)
+    season = np.arange(400) % 7
+    exact = np.ones(400, bool)
+    # one season: the same as scipy's over all values
+    one = modified_z(x, exact, np.zeros(400, int))
+    ref = (x - np.median(x)) / stats.median_abs_deviation(x, scale="normal")
+    np.testing.assert_allclose(one, ref, rtol=1e-3)      # 0.6745 is Φ⁻¹(0.75) to 4 digits
+    # per weekday: each day against its own weekday's median and MAD
+    per = modified_z(x, exact, season)
+    for s in range(7):
+        days = season == s
+        own = (x[days] - np.median(x[days])) / stats.median_abs_deviation(x[days],
+                                                                          scale="normal")
+        np.testing.assert_allclose(per[days], own, rtol=1e-3)
+    # the published threshold, raised by Bonferroni for long series (scipy's normal quantile)
+    assert z_limit(30) == 3.5
+    assert z_limit(730) == pytest.approx(stats.norm.ppf(1 - 0.05 / 1460))
+    assert 3.9 < z_limit(730) < 4.1
