@@ -35,6 +35,14 @@ Steps per terminal (README, "How a plan is made", step 2):
    which is never below ``c`` — a model-based version of "max(observed, expected)" that
    stays unbiased also when demand is far above the load. Outliers are replaced by
    ``expected``.
+
+   A weekday with fewer than ``_LEAN_DAYS`` exactly observed days (a machine that is dry on
+   almost every Sunday) cannot tell its own effect: its term then gets a normal prior
+   centred on the network's weekday profile (:func:`network_weekday_profile`, from the
+   terminals that see that weekday mostly undisturbed), with a standard deviation of
+   ``_PRIOR_SD`` residual standard deviations, and its dry days are flagged
+   ``dry+profile``. Without such a profile a weekday seen on fewer than two exact days has no
+   term.
 5. **Gap filling** (``fill``): ``"weekday_profile"`` puts ``expected`` on gap and down days,
    ``"linear"`` interpolates the cleaned demand linearly in time (ends take the nearest value),
    ``"none"`` leaves NaN.
@@ -55,7 +63,7 @@ from planner.calendar import calendar_features
 from planner.scenario import Scenario
 
 FILLS = ("weekday_profile", "linear", "none")
-FLAGS = ("ok", "gap", "down", "dry", "outlier")
+FLAGS = ("ok", "gap", "down", "dry", "outlier", "profile")
 
 _CALENDAR_TERMS = ("payday", "payday_next", "holiday", "holiday_eve", "holiday_after")
 _KNOT_DAYS = 42        # spacing of the level spline's knots
@@ -65,6 +73,10 @@ _Z_FACTOR = 0.6745     # the normal's 0.75 quantile: MAD / 0.6745 estimates σ
 _MIN_SCALE_DAYS = 20   # exact days a weekday needs for a scale of its own
 _SERIES_ALPHA = 0.05   # chance of a false flag in a genuine series (Bonferroni over its days)
 _MAX_ROUNDS = 5
+_PRIOR_SD = 0.25       # weekday prior: its sd in residual standard deviations (worth 16 days)
+_LEAN_DAYS = 8         # a weekday with fewer exact days leans on the network profile
+_PROFILE_DAYS = 8      # exact days per weekday a terminal needs to shape the network profile
+_PROFILE_DRY = 0.1     # and at most this share of them dry
 _MIN_DAYS = 3          # below this many usable days no profile model is fitted
 
 
@@ -127,12 +139,13 @@ def clean_history(scenario: Scenario, *, fill: str = "weekday_profile") -> Clean
         features = calendar_features(pd.DatetimeIndex([]), scenario.calendar)
     frames, rows = [], []
     groups = dict(tuple(dispense.groupby("terminal_id", sort=False)))
+    profile = network_weekday_profile(groups.values())
     for tid in scenario.terminal_ids:
         part = groups.get(tid)
         if part is None or part.empty:
             rows.append(_summary_row(tid, None, np.nan))
             continue
-        daily, log_sd = clean_terminal(part, features, fill=fill)
+        daily, log_sd = clean_terminal(part, features, fill=fill, profile=profile)
         daily.insert(0, "terminal_id", tid)
         frames.append(daily)
         rows.append(_summary_row(tid, daily, log_sd))
@@ -150,11 +163,47 @@ _DAILY_DTYPES = {"terminal_id": str, "date": "datetime64[ns]", "observed": float
                  "changed": bool}
 
 
+def network_weekday_profile(parts) -> np.ndarray:
+    """``[7]`` the network's weekday effects on log demand, Monday = 0: per terminal the mean
+    of ``log(1 + amount)`` on each weekday's ``ok`` days minus its Monday mean, from weekdays
+    with at least ``_PROFILE_DAYS`` ok days and at most ``_PROFILE_DRY`` of their days dry
+    (the ok days of an often dry weekday are its low days), on Monday and the weekday alike;
+    the median over terminals (NaN where no terminal qualifies: no prior there). The prior of
+    the weekday terms (module text)."""
+    effects = []
+    for part in parts:
+        used = part[part["status"].isin(("ok", "dry"))]
+        if used.empty:
+            continue
+        ok = (used["status"] == "ok").to_numpy()
+        z = np.log1p(used["amount"].to_numpy(dtype=float))
+        dow = pd.DatetimeIndex(used["date"]).day_of_week.to_numpy()
+        count = np.bincount(dow[ok], minlength=7)
+        dry_share = 1.0 - count / np.maximum(np.bincount(dow, minlength=7), 1)
+        good = (count >= _PROFILE_DAYS) & (dry_share <= _PROFILE_DRY)
+        if not good[0]:
+            continue
+        mean = np.bincount(dow[ok], weights=z[ok], minlength=7) / np.maximum(count, 1)
+        effects.append(np.where(good, mean - mean[0], np.nan))
+    out = np.full(7, np.nan)
+    if not effects:
+        return out
+    stacked = np.array(effects)
+    has = ~np.isnan(stacked)
+    for d in range(7):
+        if has[:, d].any():
+            out[d] = float(np.median(stacked[has[:, d], d]))
+    return out
+
+
 def clean_terminal(rows: pd.DataFrame, features: pd.DataFrame, *,
-                   fill: str = "weekday_profile") -> tuple[pd.DataFrame, float]:
+                   fill: str = "weekday_profile",
+                   profile: np.ndarray | None = None) -> tuple[pd.DataFrame, float]:
     """Clean one terminal's dispense rows (columns ``date, amount, status``).
 
-    ``features`` are calendar features covering the terminal's dates. Returns the daily frame
+    ``features`` are calendar features covering the terminal's dates; ``profile`` the
+    network's weekday effects (:func:`network_weekday_profile`; default none). Returns the
+    daily frame
     (columns as in :class:`CleanHistory` ``daily``, without ``terminal_id``) and the residual
     standard deviation of log demand (NaN without a model).
     """
@@ -177,7 +226,12 @@ def clean_terminal(rows: pd.DataFrame, features: pd.DataFrame, *,
     z = np.log1p(np.where(usable, observed, 0.0))
     offset = feats["event_log_lift"].to_numpy()
     t = np.arange(len(dates), dtype=float)
-    mu, s, outlier = _profile(z - offset, dry, usable, dates, feats, t)
+    profile = np.full(7, np.nan) if profile is None else np.asarray(profile, dtype=float)
+    mu, s, outlier = _profile(z - offset, dry, usable, dates, feats, t, profile)
+    dow = dates.day_of_week.to_numpy()
+    exact_days = np.bincount(dow[usable & ~dry], minlength=7)
+    # dry days whose weekday effect comes from the network's profile (few exact days of it)
+    leans = ((exact_days < _LEAN_DAYS) & np.isfinite(profile))[dow] & dry & (mu is not None)
 
     if mu is None:
         expected = np.full(len(dates), np.nan)
@@ -206,6 +260,7 @@ def clean_terminal(rows: pd.DataFrame, features: pd.DataFrame, *,
     flag[gap] = "gap"
     flag[down] = "down"
     flag[dry] = "dry"
+    flag[leans] = "dry+profile"
     flag[outlier & dry] = "dry+outlier"
     flag[outlier & ~dry] = "outlier"
     changed = ~((demand == observed) | (np.isnan(demand) & np.isnan(observed)))
@@ -242,12 +297,14 @@ def _summary_row(tid: str, daily: pd.DataFrame | None, log_sd: float) -> dict:
 
 def _design(dates: pd.DatetimeIndex, feats: pd.DataFrame, t: np.ndarray, fit: np.ndarray,
             exact: np.ndarray, *, level: bool, calendar: bool, weekday: bool) -> np.ndarray:
-    """Columns: intercept, level spline, weekday dummies, calendar indicators.
+    """Columns: intercept, level spline, weekday dummies, calendar indicators; and the
+    ``(column, weekday)`` pairs of the weekday dummies (they get the network prior).
 
     A dummy is left out when it occurs on fewer than ``_MIN_OCCURRENCES`` fitting days (or on
-    all but that many) — its coefficient would just reproduce those few days — or on fewer
-    than two exactly observed days: with dry days only, the censored likelihood has no
-    maximum (the coefficient would run off to infinity).
+    all but that many) — its coefficient would just reproduce those few days. A calendar
+    indicator is also left out on fewer than two exactly observed days (with dry days only
+    the censored likelihood has no maximum); a weekday keeps its term, held finite by the
+    prior toward the network's weekday profile.
     """
     cols = [np.ones(len(t))]
     if level and len(t) > 1:
@@ -255,23 +312,29 @@ def _design(dates: pd.DatetimeIndex, feats: pd.DataFrame, t: np.ndarray, fit: np
         cols.append(years)
         for knot in np.arange(_KNOT_DAYS, len(t) - _KNOT_DAYS // 2, _KNOT_DAYS):
             cols.append(np.maximum(years - knot / 365.0, 0.0))
-    dummies = []
+    n_fit = int(fit.sum())
+    prior: list[tuple[int, int]] = []          # (column, weekday) of the weekday dummies
     if weekday:
         dow = dates.day_of_week.to_numpy()
-        dummies += [(dow == d).astype(float) for d in range(1, 7)]
+        for d in range(1, 7):
+            col = (dow == d).astype(float)
+            k = int(col[fit].sum())
+            # with the prior, a weekday seen only on dry days still has a finite estimate
+            if _MIN_OCCURRENCES <= k <= n_fit - _MIN_OCCURRENCES:
+                prior.append((len(cols), d))
+                cols.append(col)
     if calendar:
-        dummies += [feats[c].to_numpy() for c in _CALENDAR_TERMS]
-    n_fit = int(fit.sum())
-    for col in dummies:
-        k = int(col[fit].sum())
-        if _MIN_OCCURRENCES <= k <= n_fit - _MIN_OCCURRENCES and col[exact].sum() >= 2:
-            cols.append(col)
-    return np.column_stack(cols)
+        for c in _CALENDAR_TERMS:
+            col = feats[c].to_numpy()
+            k = int(col[fit].sum())
+            if _MIN_OCCURRENCES <= k <= n_fit - _MIN_OCCURRENCES and col[exact].sum() >= 2:
+                cols.append(col)
+    return np.column_stack(cols), prior
 
 
 def _profile(z: np.ndarray, censored: np.ndarray, usable: np.ndarray,
-             dates: pd.DatetimeIndex, feats: pd.DataFrame, t: np.ndarray
-             ) -> tuple[np.ndarray | None, float, np.ndarray]:
+             dates: pd.DatetimeIndex, feats: pd.DataFrame, t: np.ndarray,
+             profile: np.ndarray) -> tuple[np.ndarray | None, float, np.ndarray]:
     """Fit the profile model with outlier rounds.
 
     Returns the fitted log mean for every day (None without a model), the residual standard
@@ -283,8 +346,20 @@ def _profile(z: np.ndarray, censored: np.ndarray, usable: np.ndarray,
     mu, s = None, np.nan
     for _ in range(_MAX_ROUNDS):
         fit = usable & ~outlier
-        X = _reduced_design(dates, feats, t, fit, fit & ~censored)
-        beta, s = _tobit(X[fit], z[fit], censored[fit])
+        X, prior = _reduced_design(dates, feats, t, fit, fit & ~censored)
+        # the prior only where the data cannot tell: a weekday with few exact days
+        exact_days = np.bincount(dates.day_of_week.to_numpy()[fit & ~censored], minlength=7)
+        # a weekday seen exactly on fewer than two days and without a prior has no estimate
+        # (the censored likelihood would have no maximum): its term is left out
+        drop = [c for c, d in prior if exact_days[d] < 2 and not np.isfinite(profile[d])]
+        keep = np.setdiff1d(np.arange(X.shape[1]), drop)
+        X = X[:, keep]
+        where = {int(c): i for i, c in enumerate(keep)}
+        prior = [(where[c], d) for c, d in prior
+                 if c in where and exact_days[d] < _LEAN_DAYS and np.isfinite(profile[d])]
+        columns = np.array([c for c, _ in prior], dtype=int)
+        means = np.array([profile[d] for _, d in prior], dtype=float)
+        beta, s = _tobit(X[fit], z[fit], censored[fit], (columns, means))
         mu = X @ beta
         score = modified_z(z - mu, usable & ~censored, dates.day_of_week.to_numpy())
         exact = usable & ~censored
@@ -335,38 +410,53 @@ def _reduced_design(dates: pd.DatetimeIndex, feats: pd.DataFrame, t: np.ndarray,
     n = int(exact.sum())
     for level, calendar, weekday in ((True, True, True), (False, True, True),
                                      (False, False, True), (False, False, False)):
-        X = _design(dates, feats, t, fit, exact, level=level, calendar=calendar,
-                    weekday=weekday)
+        X, prior = _design(dates, feats, t, fit, exact, level=level, calendar=calendar,
+                           weekday=weekday)
         if n >= 2 * X.shape[1] + 2 or not weekday:
-            return X
+            return X, prior
     raise AssertionError("unreachable")
 
 
-def _tobit(X: np.ndarray, z: np.ndarray, censored: np.ndarray) -> tuple[np.ndarray, float]:
+def _tobit(X: np.ndarray, z: np.ndarray, censored: np.ndarray,
+           prior: tuple[np.ndarray, np.ndarray] | None = None) -> tuple[np.ndarray, float]:
     """Maximum-likelihood normal regression with right-censored rows (Tobit type I).
 
-    ``z`` on censored rows is the lower bound. Without censored rows this is ordinary least
-    squares with the ML variance ``RSS / n``. Returns coefficients and the standard deviation.
+    ``z`` on censored rows is the lower bound. Without censored rows and prior this is
+    ordinary least squares with the ML variance ``RSS / n``. Returns coefficients and the
+    standard deviation.
+
+    ``prior`` ``(columns, means)``: a normal prior ``beta_j ~ N(mean_j, (_PRIOR_SD · s)²)`` on
+    those coefficients (the posterior mode is returned). Its scale follows the residual
+    standard deviation ``s``, which keeps the objective concave in the parametrisation below.
 
     Newton's method in Olsen's parametrisation ``d = beta / s``, ``t = 1 / s``, in which the
-    log-likelihood is globally concave (Olsen 1978, Econometrica 46(5) 1211-1215), so the
-    iteration from the least-squares start converges in a handful of steps.
+    log-likelihood is globally concave (Olsen 1978, Econometrica 46(5) 1211-1215), and so is
+    the prior term ``−(d_j − mean_j t)² / (2 _PRIOR_SD²)``; the iteration from the
+    least-squares start converges in a handful of steps.
     """
     exact = ~censored
-    # normal equations: the design is small and well scaled, and a p × p solve is far cheaper
-    # than an SVD of the n × p design
-    beta, *_ = np.linalg.lstsq(X[exact].T @ X[exact], X[exact].T @ z[exact], rcond=None)
+    cols, means = (np.zeros(0, int), np.zeros(0)) if prior is None else prior
+    weight = 1.0 / _PRIOR_SD ** 2
+    # normal equations (with the prior as pseudo-observations): the design is small and well
+    # scaled, and a p × p solve is far cheaper than an SVD of the n × p design
+    p = X.shape[1]
+    gram = X[exact].T @ X[exact]
+    rhs = X[exact].T @ z[exact]
+    if cols.size:
+        gram[cols, cols] += weight * 1e-2
+        rhs[cols] += weight * 1e-2 * means
+    beta, *_ = np.linalg.lstsq(gram, rhs, rcond=None)
     resid = z[exact] - X[exact] @ beta
-    s0 = max(float(np.sqrt(np.mean(resid ** 2))), 1e-6)
-    if not censored.any():
+    s0 = max(float(np.sqrt(np.mean(resid ** 2))) if resid.size else 1.0, 1e-6)
+    if not censored.any() and not cols.size:
         return beta, s0
     Xe, ze, Xc, zc = X[exact], z[exact], X[censored], z[censored]
-    p = X.shape[1]
 
     def loglik(d: np.ndarray, t: float) -> float:
         r = t * ze - Xe @ d
+        q = d[cols] - means * t
         return float(len(ze) * np.log(t) - 0.5 * r @ r
-                     + special.log_ndtr(Xc @ d - t * zc).sum())
+                     + special.log_ndtr(Xc @ d - t * zc).sum() - 0.5 * weight * q @ q)
 
     d, t = beta / s0, 1.0 / s0
     value = loglik(d, t)
@@ -375,11 +465,18 @@ def _tobit(X: np.ndarray, z: np.ndarray, censored: np.ndarray) -> tuple[np.ndarr
         w = Xc @ d - t * zc
         lam = np.exp(-0.5 * w * w - 0.5 * np.log(2 * np.pi) - special.log_ndtr(w))
         h = -lam * (w + lam)                      # d(lam)/dw, always <= 0
+        q = d[cols] - means * t
         grad = np.append(Xe.T @ r + Xc.T @ lam, len(ze) / t - r @ ze - lam @ zc)
+        grad[cols] -= weight * q
+        grad[p] += weight * means @ q
         hess = np.empty((p + 1, p + 1))
         hess[:p, :p] = -(Xe.T @ Xe) + (Xc.T * h) @ Xc
         hess[:p, p] = hess[p, :p] = Xe.T @ ze - Xc.T @ (h * zc)
         hess[p, p] = -len(ze) / t ** 2 - ze @ ze + h @ (zc * zc)
+        hess[cols, cols] -= weight
+        hess[cols, p] += weight * means
+        hess[p, cols] += weight * means
+        hess[p, p] -= weight * means @ means
         try:
             step = np.linalg.solve(hess, -grad)
         except np.linalg.LinAlgError:

@@ -193,11 +193,18 @@ def check(
                 "terminals": json.loads(result.quality.to_json(orient="records",
                                                                date_format="iso")),
                 "network": result.network,
+                "undeclared_calendar_effects": json.loads(
+                    result.calendar.to_json(orient="records")),
             }))
             return
         _print_warnings(result.scenario.warnings, False)
         console.print(_frame_table(result.quality, f"Data quality — {result.scenario.name}"))
         console.print(_frame_table(result.network_frame(), "Network totals"))
+        if len(result.calendar):
+            shown = result.calendar.assign(z=result.calendar["z"].round(1))
+            console.print(_frame_table(shown[["effect", "z", "months_shown", "months", "add"]],
+                                       "Calendar effects in the history that scenario.toml "
+                                       "does not declare (not used by the forecast)"))
         console.print("[green]Scenario is valid.[/green]")
 
     _run(debug, action)
@@ -243,7 +250,8 @@ def plan(
             return
         if quiet:
             return
-        _print_warnings(result.scenario.warnings, quiet)
+        _print_warnings(list(result.scenario.warnings)
+                        + list(result.summary.get("calendar_notices", [])), quiet)
         console.print(_frame_table(result.summary_frame(), "Plan summary"))
         for note in result.notes():
             console.print(f"[yellow]target not reachable[/yellow] {note}", highlight=False)

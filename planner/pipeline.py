@@ -22,12 +22,15 @@ class CheckResult:
     """Outcome of ``planner check``: the validated scenario and its data-quality table.
 
     ``quality``: one row per terminal (terminal_id, depot, days, gaps, down, dry, outliers,
-    first, last, mean_daily in currency units); ``network``: totals over all terminals.
+    first, last, mean_daily in currency units); ``network``: totals over all terminals;
+    ``calendar``: monthly effects found in the history that the scenario does not declare
+    (:func:`planner.discovery.undeclared_effects`).
     """
 
     scenario: Scenario
     quality: pd.DataFrame
     network: dict[str, Any]
+    calendar: pd.DataFrame
 
     def network_frame(self) -> pd.DataFrame:
         return pd.DataFrame([self.network])
@@ -36,6 +39,7 @@ class CheckResult:
 def check_scenario(path: str | Path | Scenario) -> CheckResult:
     """Load and validate a scenario and describe the quality of its history."""
     from planner.cleaning import clean_history
+    from planner.discovery import undeclared_effects
 
     scenario = path if isinstance(path, Scenario) else load_scenario(path)
     clean = clean_history(scenario)
@@ -58,7 +62,7 @@ def check_scenario(path: str | Path | Scenario) -> CheckResult:
                "first": f"{scenario.dispense['date'].min():%Y-%m-%d}",
                "last": f"{scenario.dispense['date'].max():%Y-%m-%d}",
                "first_planning_day": f"{scenario.start_date:%Y-%m-%d}"}
-    return CheckResult(scenario, quality, network)
+    return CheckResult(scenario, quality, network, undeclared_effects(scenario, clean))
 
 
 @dataclass(frozen=True)
@@ -177,6 +181,7 @@ def plan_scenario(source: str | Path | Scenario, *, options: PlanOptions | None 
     costs = result.ledger.parts()
     costs.insert(0, "terminal_id", list(problem.terminal_ids))
     summary = _summary(scenario, options, forecast, problem, result, plan, costs)
+    summary["calendar_notices"] = calendar_notices(scenario, clean)
     if calibration is not None:
         summary["calibration"] = calibration.summary()
     evaluation, check = None, None
@@ -351,6 +356,17 @@ SERVICE_DEFINITION = (
     "cycle service level: for every visit in the planned window (horizon and look-ahead), "
     "the probability that the machine runs dry before its next visit is at most the target; "
     "the same for the start balance until the first visit; figures on the plan's own paths")
+
+
+def calendar_notices(scenario, clean) -> list[str]:
+    """Plain lines for the monthly effects the history shows and the scenario does not
+    declare (the forecast does not use them; the user decides)."""
+    from planner.discovery import undeclared_effects
+
+    found = undeclared_effects(scenario, clean)
+    return [f"undeclared calendar effect: {r.effect}, in {r.months_shown} of {r.months} "
+            f"months; not used by the forecast — {r.add} if it is real"
+            for r in found.itertuples()]
 
 
 def plan_problem(scenario, clean, problem, options: PlanOptions, progress=None):

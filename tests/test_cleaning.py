@@ -301,3 +301,51 @@ def test_modified_z_score_against_scipy():
     assert z_limit(30) == 3.5
     assert z_limit(730) == pytest.approx(stats.norm.ppf(1 - 0.05 / 1460))
     assert 3.9 < z_limit(730) < 4.1
+
+
+NETWORK = ["BRH-001", "BRH-002", "BRH-003"]
+
+
+def _dry_machine_in_network(seed: int, load: float, sundays_dry: bool):
+    """BRH-001 runs dry under a fixed load (visits Mon and Thu), optionally dry on every
+    Sunday with 30–70 % of demand recorded (a machine in a mall closed on Sundays); its two
+    twins of the same weekday profile never run dry. Known demand: the answer is known by
+    construction."""
+    dates, demand = true_demand(seed)
+    dispense = run_dry(demand, dates, load)
+    if sundays_dry:
+        rng = np.random.default_rng(seed + 99)
+        sunday = dates.day_of_week == 6
+        dispense.loc[sunday, "amount"] = np.round(demand[sunday]
+                                                  * rng.uniform(0.3, 0.7, sunday.sum()))
+        dispense.loc[sunday, "status"] = "dry"
+    twins = [frame(dates, np.round(true_demand(seed + 1000 * (k + 1))[1]), tid=tid)
+             for k, tid in enumerate(NETWORK[1:])]
+    history = pd.concat([dispense] + twins, ignore_index=True)
+    daily = clean_history(scenario_with(history, terminals=NETWORK)).daily
+    return dates, demand, dispense, daily[daily["terminal_id"] == "BRH-001"]
+
+
+@pytest.mark.parametrize("load, sundays_dry", [(28000.0, False), (30000.0, False),
+                                                (34000.0, False), (40000.0, True)])
+def test_cleaned_mean_holds_when_a_weekday_is_almost_always_dry(load, sundays_dry):
+    # 20 seeds per setting; at 28,000 about 98 % of Sundays are dry, in the last setting all;
+    # measured 2026-12-02: 19, 20, 20 and 20 of 20 within 3 % (5, 19, 20 and 0 of 20 when
+    # the weekday term was dropped for want of exact days)
+    within = 0
+    for seed in range(20):
+        dates, demand, dispense, d = _dry_machine_in_network(seed, load, sundays_dry)
+        within += abs(d["demand"].mean() / demand.mean() - 1) < 0.03
+    assert within >= 19
+
+
+def test_a_weekday_seen_only_dry_leans_on_the_network_profile_and_says_so():
+    dates, demand, dispense, d = _dry_machine_in_network(3, 40000.0, True)
+    sunday = (d["date"].dt.day_of_week == 6).to_numpy()
+    assert (d.loc[sunday, "flag"] == "dry+profile").all()
+    assert not d.loc[~sunday, "flag"].str.contains("profile").any()
+    # the Sunday estimate is near the true Sunday mean (the network's profile is the truth's);
+    # measured 1.12 (seeds 0-4: 1.04-1.12; the recorded 30-70 % still pull a little, as a
+    # lower bound that grows with demand is not the independent one the model assumes)
+    ratio = d.loc[sunday, "demand"].mean() / demand[sunday].mean()
+    assert 0.9 < ratio < 1.15

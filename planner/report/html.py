@@ -553,10 +553,16 @@ def _quality_section(ctx: _Context) -> Section:
         rows.append(cells)
     body = _p("How complete and clean each terminal's history is. <i>No record</i>: days without "
               "a row; <i>out of service</i>: days marked down; <i>dry</i>: days the machine ran "
-              "out, whose amount is only a lower bound of demand; <i>outliers</i>: beyond Tukey "
-              "fences (1.5 × IQR) on the calendar-adjusted series; <i>changed</i>: days whose "
-              "cleaned demand differs from the record. A boxed count exceeds 5 % of the days."
+              "out, whose amount is only a lower bound of demand; <i>outliers</i>: a modified "
+              "z-score beyond 3.5 (Iglewicz &amp; Hoaglin), raised for long series, on the "
+              "calendar-adjusted series; <i>changed</i>: days whose cleaned demand differs "
+              "from the record. A boxed count exceeds 5 % of the days."
               ) + _table(head, rows, numeric=range(1, len(head)))
+    notices = ctx.summary.get("calendar_notices") or []
+    if notices:
+        body += _p("<b>Calendar effects the history shows and scenario.toml does not "
+                   "declare</b> (the forecast does not use them):") + "<ul>" + "".join(
+            f"<li>{esc(line)}</li>" for line in notices) + "</ul>"
     return Section("data-quality", "Data quality", body)
 
 
