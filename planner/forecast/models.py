@@ -624,6 +624,16 @@ def css_regression_arma(dz: np.ndarray, dX: np.ndarray, p: int, q: int, cond: in
     return beta, phi, theta, sse
 
 
+def _near_unit_root(phi: np.ndarray, theta: np.ndarray, limit: float) -> bool:
+    """Whether the AR polynomial ``1 − φ1 B − …`` or the MA polynomial ``1 + θ1 B + …`` has an
+    inverse root of modulus above ``limit`` (a root near the unit circle)."""
+    for poly in (np.concatenate(([1.0], -np.asarray(phi, float))),
+                 np.concatenate(([1.0], np.asarray(theta, float)))):
+        if len(poly) > 1 and np.max(np.abs(np.roots(poly))) > limit:
+            return True
+    return False
+
+
 class RegressionARIMA(_LogLinearModel):
     """Regression of log1p demand on weekday dummies and calendar features with ARIMA errors::
 
@@ -638,7 +648,20 @@ class RegressionARIMA(_LogLinearModel):
     the regression, ARMA by CSS on its residuals, GLS re-estimate of β on the ARMA-filtered
     data; two rounds). ``method="mle"``: exact Gaussian maximum likelihood with statsmodels
     ``SARIMAX`` for every order of the grid (slow; a reference).
+
+    Near the edge of the parameter space the conditional fit drifts from the exact one (an AR
+    root near the unit circle on a trending series: φ 0.998 where exact ML gives 0.901; an MA
+    root near it on an over-differenced series). When any order of the grid has an AR or MA
+    root of modulus above ``NEAR_UNIT`` (in the inverse-root sense: the polynomial's roots
+    inside ``1 / NEAR_UNIT``), the whole grid is fitted again by exact ML and chosen by its
+    AIC, leaving out the orders without differencing whose AR part has a root at the circle
+    (a difference in disguise; their AIC does not compare with the differenced orders');
+    ``fit_method_`` and :meth:`describe` say so. Elsewhere the two agree to well within
+    1 % in their 14-day forecasts (tests: statsmodels' ``macrodata``, demo terminals,
+    simulated series), at a fraction of the cost.
     """
+
+    NEAR_UNIT = 0.95
 
     name = "regression_arima"
 
@@ -683,9 +706,12 @@ class RegressionARIMA(_LogLinearModel):
         columns = new._choose_columns(exog)
         start = (self.beta_, self.phi_, self.theta_) if columns == self.exog_columns_ \
             else None
-        if self.method != "css":
+        if self.fit_method_ != "css":
             start = None
+            new.method = "mle"            # the refit keeps the exact fit the grid needed
         new._fit_grid(y, exog, (self.order_,), self.cond_, start)
+        new.method = self.method
+        new.fit_method_ = self.fit_method_
         new.aic_by_order_ = {**self.aic_by_order_, self.order_: new.aic_}
         return new
 
@@ -713,6 +739,24 @@ class RegressionARIMA(_LogLinearModel):
         if not fits:
             raise ModelFitError(f"{self.name}: no order of the grid could be fitted "
                                 f"({'; '.join(failures)})")
+        self.fit_method_ = self.method
+        if self.method == "css" and any(_near_unit_root(f["phi"], f["theta"], self.NEAR_UNIT)
+                                        for f in fits):
+            exact = []
+            for order in orders:
+                try:
+                    exact.append(self._fit_mle(z, X, order))
+                except (ModelFitError, np.linalg.LinAlgError) as exc:
+                    failures.append(f"{order} by exact ML: {exc}")
+            if exact:
+                fits = exact
+                self.fit_method_ = "mle (a root near the unit circle)"
+        if self.fit_method_ != "css" and any(f["order"][1] for f in fits):
+            # an AR root at the unit circle is a difference in disguise: the integrated
+            # orders represent such a series (and their AIC is not comparable across d)
+            level = [f for f in fits if f["order"][1] or not _near_unit_root(
+                f["phi"], np.zeros(0), self.NEAR_UNIT)]
+            fits = level or fits
         best = min(fits, key=lambda f: f["aic"])
         self.order_, self.cond_ = best["order"], cond
         self.beta_, self.phi_, self.theta_ = best["beta"], best["phi"], best["theta"]
@@ -758,6 +802,11 @@ class RegressionARIMA(_LogLinearModel):
             warnings.simplefilter("ignore")
             model = SARIMAX(z, exog=regressors, order=order, trend="n")
             res = model.fit(disp=False, maxiter=200)
+            if not res.mle_retvals.get("converged", True):
+                # a hard surface (a root near the circle): Nelder–Mead first, then the
+                # quasi-Newton polish from where it stopped
+                rough = model.fit(disp=False, method="nm", maxiter=5000)
+                res = model.fit(disp=False, start_params=rough.params, maxiter=500)
         if not res.mle_retvals.get("converged", True):
             raise ModelFitError(f"SARIMAX{order} did not converge")
         # SARIMAX orders its parameters as exog, AR, MA, variance
@@ -782,7 +831,7 @@ class RegressionARIMA(_LogLinearModel):
     def apply(self, y: np.ndarray, exog: np.ndarray | None = None) -> "RegressionARIMA":
         new = self.clone()
         for key in ("exog_columns_", "order_", "cond_", "beta_", "phi_", "theta_", "sigma_", "aic_",
-                    "aic_by_order_", "failed_orders_"):
+                    "aic_by_order_", "failed_orders_", "fit_method_"):
             setattr(new, key, getattr(self, key))
         y = np.asarray(y, dtype=float)
         n = len(y)
@@ -796,7 +845,9 @@ class RegressionARIMA(_LogLinearModel):
 
     def describe(self) -> str:
         p, d, q = self.order_
-        return f"regression with ARIMA({p},{d},{q}) errors on log1p, AIC {self.aic_:.1f}"
+        how = "" if self.fit_method_ == "css" else f", fitted by {self.fit_method_}"
+        return (f"regression with ARIMA({p},{d},{q}) errors on log1p, AIC {self.aic_:.1f}"
+                f"{how}")
 
 
 # --------------------------------------------------------------------------------------------
