@@ -39,7 +39,9 @@ SCENARIO_HELP = ("Scenario folder (scenario.toml, terminals.csv, depots.csv, dis
 
 ScenarioArg = Annotated[Optional[Path], typer.Argument(help=SCENARIO_HELP, show_default=False,
                                                        metavar="SCENARIO")]
-OutOpt = typer.Option("--out", "-o", help="Run folder to write (replaced whole if it exists).")
+OutOpt = typer.Option("--out", "-o", help="Run folder to write: a new or empty folder, or an "
+                                           "earlier run folder of this tool holding nothing "
+                                           "else (then replaced whole).")
 HorizonOpt = Annotated[Optional[int], typer.Option(
     "--horizon", min=1, help="Horizon in days (default: the scenario's planning.horizon_days).")]
 PathsOpt = Annotated[Optional[int], typer.Option(
@@ -69,11 +71,16 @@ def main(
     """Cash replenishment planner."""
 
 
-def _run(debug: bool, action: Callable[[], int | None]) -> None:
-    """Run one library call, mapping our errors to exit codes and clear messages."""
+def _run(debug: bool, action: Callable[[], int | None], as_json: bool = False) -> None:
+    """Run one library call, mapping our errors to exit codes and clear messages (with
+    ``as_json`` also a JSON object of the problems on standard output)."""
     try:
         code = action()
     except InputError as exc:
+        if as_json:
+            console.print_json(json.dumps({"ok": False, "exit_code": 2, "problems": [
+                {"file": p.file, "line": p.line, "column": p.column, "problem": p.problem,
+                 "fix": p.fix} for p in exc.problems]}))
         errors.print(f"[bold]Input problem{'s' if len(exc.problems) > 1 else ''} "
                      f"({len(exc.problems)}):[/bold]")
         for p in exc.problems:
@@ -207,7 +214,7 @@ def check(
                                        "does not declare (not used by the forecast)"))
         console.print("[green]Scenario is valid.[/green]")
 
-    _run(debug, action)
+    _run(debug, action, as_json)
 
 
 @app.command()
@@ -228,6 +235,9 @@ def plan(
     variant: Annotated[Optional[list[Path]], typer.Option(
         "--variant", help="Also compare the what-if variant of this TOML file "
                           "(repeatable).")] = None,
+    max_memory: Annotated[Optional[float], typer.Option(
+        "--max-memory", min=0.0, help="Refuse the run when its memory estimate exceeds this, "
+                                      "in GB (default: the memory available now).")] = None,
     quiet: QuietOpt = False,
     as_json: JsonOpt = False,
     debug: DebugOpt = False,
@@ -241,7 +251,8 @@ def plan(
 
         options = PlanOptions(horizon_days=horizon, path_count=paths, seed=seed, jobs=jobs,
                               time_limit_s=time_limit, backtest_weeks=backtest_weeks,
-                              what_if=tuple(sets or ()), variant_files=tuple(variant or ()))
+                              what_if=tuple(sets or ()), variant_files=tuple(variant or ()),
+                              max_memory_gb=max_memory)
         with StageProgress(enabled=not (quiet or as_json)) as progress:
             result = run_plan(_scenario_path(scenario), out, options=options,
                               progress=progress)
@@ -257,7 +268,7 @@ def plan(
             console.print(f"[yellow]target not reachable[/yellow] {note}", highlight=False)
         console.print(f"Run folder written: [bold]{result.run_folder}[/bold]")
 
-    _run(debug, action)
+    _run(debug, action, as_json)
 
 
 @app.command()
@@ -295,7 +306,7 @@ def forecast(
         console.print("Champion per terminal and its reason: champions.csv in the run folder.")
         console.print(f"Run folder written: [bold]{result.run_folder}[/bold]")
 
-    _run(debug, action)
+    _run(debug, action, as_json)
 
 
 @app.command()
@@ -325,7 +336,7 @@ def diagnose(
         console.print(_frame_table(result.tests, "Diagnostics"))
         console.print(f"Run folder written: [bold]{result.run_folder}[/bold]")
 
-    _run(debug, action)
+    _run(debug, action, as_json)
 
 
 @app.command()
@@ -371,7 +382,7 @@ def backtest(
             console.print(line, markup=False)
         console.print(f"Run folder written: [bold]{out}[/bold]")
 
-    _run(debug, action)
+    _run(debug, action, as_json)
 
 
 @app.command()
@@ -413,7 +424,7 @@ def compare(
             console.print(line, markup=False)
         console.print(f"Run folder written: [bold]{out}[/bold]")
 
-    _run(debug, action)
+    _run(debug, action, as_json)
 
 
 def _compare_view(table, currency: str):

@@ -14,7 +14,7 @@ import numpy as np
 import pandas as pd
 
 from planner import __version__
-from planner.options import PlanOptions
+from planner.options import PlanOptions, check_memory
 from planner.scenario import Scenario, load_scenario
 
 @dataclass(frozen=True)
@@ -164,6 +164,7 @@ def plan_scenario(source: str | Path | Scenario, *, options: PlanOptions | None 
         variants = parse_variants(options.what_if, options.variant_files)  # fail early
     scenario = source if isinstance(source, Scenario) else load_scenario(source)
     scenario = options.apply(scenario)
+    check_memory(scenario, options)
 
     progress("clean", 0, 1)
     clean = clean_history(scenario)
@@ -292,13 +293,20 @@ def json_records(frame: pd.DataFrame) -> list[dict[str, Any]]:
     return out
 
 
+def open_run_folder(out_dir: str | Path, source: str | Path | Scenario):
+    """The run folder's writer, checked and locked before any work
+    (:class:`planner.runfolder.RunFolderWriter`; the scenario folder is protected)."""
+    from planner.runfolder import RunFolderWriter
+
+    folder = source.root if isinstance(source, Scenario) else Path(source)
+    return RunFolderWriter(Path(out_dir), protect=[folder])
+
+
 def run_plan(source: str | Path | Scenario, out_dir: str | Path, *,
              options: PlanOptions | None = None, progress: Progress | None = None) -> PlanRun:
     """Plan a scenario and write its run folder atomically (owner-only permissions)."""
-    from planner.runfolder import RunFolderWriter
-
-    run = plan_scenario(source, options=options, progress=progress)
-    with RunFolderWriter(Path(out_dir)) as writer:
+    with open_run_folder(out_dir, source) as writer:
+        run = plan_scenario(source, options=options, progress=progress)
         writer.write_csv("plan.csv", _rounded(run.plan))
         writer.write_csv("orders.csv", _rounded(run.orders))
         writer.write_csv("costs.csv", _rounded(run.costs))
@@ -491,10 +499,8 @@ def forecast_only(source: str | Path | Scenario, *, options: PlanOptions | None 
 def run_forecast(source: str | Path | Scenario, out_dir: str | Path, *,
                  options: PlanOptions | None = None) -> ForecastRun:
     """Forecast and write accuracy, champions and forecast quantiles to a run folder."""
-    from planner.runfolder import RunFolderWriter
-
-    run = forecast_only(source, options=options)
-    with RunFolderWriter(Path(out_dir)) as writer:
+    with open_run_folder(out_dir, source) as writer:
+        run = forecast_only(source, options=options)
         writer.write_csv("accuracy_by_model.csv", _rounded(run.by_model))
         writer.write_csv("accuracy.csv", _rounded(run.forecast.accuracy))
         writer.write_csv("champions.csv", _rounded(run.champions))
@@ -522,11 +528,18 @@ def run_diagnose(source: str | Path | Scenario, out_dir: str | Path, *,
                  options: PlanOptions | None = None) -> DiagnoseRun:
     """Diagnose the history (and the champion's residuals) of terminals; write the run folder
     with ``diagnostics.csv`` and one chart page per terminal."""
+    with open_run_folder(out_dir, source) as writer:
+        scenario, tests = _diagnose_into(writer, source, terminal_ids, options)
+    return DiagnoseRun(scenario, tests, Path(out_dir))
+
+
+def _diagnose_into(writer, source, terminal_ids, options):
+    """The diagnostics written into the staging folder of ``writer``:
+    ``(scenario, tests)``."""
     from planner.cleaning import clean_history
     from planner.diagnostics import diagnose_scenario
     from planner.errors import InputError, Problem
     from planner.forecast import forecast_scenario
-    from planner.runfolder import RunFolderWriter
 
     options = options or PlanOptions(tail_days=0)
     scenario = source if isinstance(source, Scenario) else load_scenario(source)
@@ -542,12 +555,8 @@ def run_diagnose(source: str | Path | Scenario, out_dir: str | Path, *,
                                  path_count=min(scenario.path_count, 100), seed=scenario.seed,
                                  jobs=options.jobs, origins=options.origins)
     residuals = getattr(forecast, "residuals", None)
-    with RunFolderWriter(Path(out_dir)) as writer:
-        results = diagnose_scenario(scenario, clean, residuals_by_terminal=residuals,
-                                    out_dir=writer.staging)
-        tests = pd.read_csv(writer.staging / "diagnostics.csv")
-    del results
-    return DiagnoseRun(scenario, tests, Path(out_dir))
+    diagnose_scenario(scenario, clean, residuals_by_terminal=residuals, out_dir=writer.staging)
+    return scenario, pd.read_csv(writer.staging / "diagnostics.csv")
 
 
 def _subset(scenario: Scenario, terminal_ids: list[str]) -> Scenario:
@@ -572,13 +581,12 @@ def run_backtest(source: str | Path | Scenario, out_dir: str | Path, *, weeks: i
     and write the backtest tables and chart to a run folder."""
     from planner.evaluate.backtest import backtest_scenario, write_backtest
     from planner.evaluate.baselines import read_past_visits
-    from planner.runfolder import RunFolderWriter
 
-    scenario = source if isinstance(source, Scenario) else load_scenario(source)
-    past = read_past_visits(past_visits, scenario.terminals) if past_visits else None
-    result = backtest_scenario(scenario, weeks, options=options or PlanOptions(),
-                               past_visits=past, progress=progress)
-    with RunFolderWriter(Path(out_dir)) as writer:
+    with open_run_folder(out_dir, source) as writer:
+        scenario = source if isinstance(source, Scenario) else load_scenario(source)
+        past = read_past_visits(past_visits, scenario.terminals) if past_visits else None
+        result = backtest_scenario(scenario, weeks, options=options or PlanOptions(),
+                                   past_visits=past, progress=progress)
         write_backtest(writer, result)
     return result
 
@@ -590,11 +598,10 @@ def run_compare(source: str | Path | Scenario, out_dir: str | Path, *,
     """Re-plan what-if variants on the base's demand paths, price all on common out-of-sample
     paths, and write the comparison tables and chart to a run folder."""
     from planner.compare import compare_scenario, parse_variants, write_compare
-    from planner.runfolder import RunFolderWriter
 
     variants = parse_variants(sets, files)  # bad overrides fail before any forecasting
-    scenario = source if isinstance(source, Scenario) else load_scenario(source)
-    result = compare_scenario(scenario, variants, options=options or PlanOptions())
-    with RunFolderWriter(Path(out_dir)) as writer:
+    with open_run_folder(out_dir, source) as writer:
+        scenario = source if isinstance(source, Scenario) else load_scenario(source)
+        result = compare_scenario(scenario, variants, options=options or PlanOptions())
         write_compare(writer, result)
     return result

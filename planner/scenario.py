@@ -49,6 +49,24 @@ MAX_HORIZON_DAYS = 366
 MAX_PATH_COUNT = 100_000
 MAX_CREWS = 10_000
 MAX_BUNDLES_PER_LOAD = 10**9
+MAX_SEED = 2**63 - 1
+FORMULA_START = r"^[=+\-@\t\r]"   # an identifier a spreadsheet would run as a formula
+# The one definition of the run settings' ranges, for scenario.toml and the command line
+# alike: setting -> (least, most, the TOML key, the option)
+RUN_RANGES = {
+    "horizon_days": (1, MAX_HORIZON_DAYS, "planning.horizon_days", "--horizon"),
+    "path_count": (1, MAX_PATH_COUNT, "paths.count", "--paths"),
+    "seed": (0, MAX_SEED, "paths.seed", "--seed"),
+}
+
+
+def run_setting_problem(name: str, value: int, where: str) -> str | None:
+    """Why ``value`` is out of range for run setting ``name`` (:data:`RUN_RANGES`), or None;
+    ``where`` names it in the text (the TOML key or the option)."""
+    low, high, _, _ = RUN_RANGES[name]
+    if low <= value <= high:
+        return None
+    return f"{where} must lie between {low:,} and {high:,}, got {value:,}"
 
 # --------------------------------------------------------------------------------------------
 # Typed settings and the scenario
@@ -580,9 +598,15 @@ def _dates(table: _Table, col: str, problems: list[Problem], notices: list[str])
 
 def _text_ids(table: _Table, col: str, what: str, item: str,
               problems: list[Problem]) -> pd.Series:
-    """Check an id column: none empty, none twice (one row per ``item``)."""
+    """Check an id column: none empty, none twice (one row per ``item``), none that a
+    spreadsheet would run as a formula (first character ``= + - @``, a tab or a carriage
+    return), so that every export of the plan is safe to open."""
     ids = table.frame[col]
     table.flag(problems, ids == "", col, f"{what} is empty", f"give every row a {what}")
+    table.flag(problems, ids.str.match(FORMULA_START).to_numpy(), col,
+               lambda i: f"{what} {_show(ids.iloc[i])} begins with a character a spreadsheet "
+                         "reads as a formula",
+               "begin the name with a letter or digit (drop the leading = + - @)")
     dup = ids.duplicated(keep="first") & (ids != "")
     first = ids.drop_duplicates(keep="first")
     first_line = pd.Series(table.lines[first.index], index=first.to_numpy())
@@ -836,9 +860,9 @@ def _read_settings(root: Path, notices: list[str]) -> dict[str, Any]:
         elif start is None:
             report("start_date", f"'start_date' {_show(values['start_date'])} is not a date",
                    "write start_date = 2026-12-07 (a date that exists)")
-    check("planning.horizon_days", lambda v: v >= 1, "must be at least 1",
-          "set horizon_days = 14 (days)")
-    check("planning.horizon_days", lambda v: v < 1 or v <= MAX_HORIZON_DAYS,
+    check("planning.horizon_days", lambda v: v >= RUN_RANGES["horizon_days"][0],
+          "must be at least 1", "set horizon_days = 14 (days)")
+    check("planning.horizon_days", lambda v: v < 1 or v <= RUN_RANGES["horizon_days"][1],
           f"must be at most {MAX_HORIZON_DAYS} (a year)", "plan a shorter horizon, e.g. 14")
     check("planning.replenishment", lambda v: v in MODES, "must be \"swap\" or \"topup\"",
           'write replenishment = "swap" or "topup"'
@@ -857,10 +881,10 @@ def _read_settings(root: Path, notices: list[str]) -> dict[str, Any]:
               f"set {key} to 0 or more")
     check("service.max_dry_probability", lambda v: finite(v) and 0 < v < 1,
           "must lie in (0, 1)", "write a probability, e.g. 0.02 for 2 %")
-    check("paths.count", lambda v: 1 <= v <= MAX_PATH_COUNT,
+    check("paths.count", lambda v: run_setting_problem("path_count", v, "") is None,
           f"must lie between 1 and {MAX_PATH_COUNT:,}", "set count = 500")
-    check("paths.seed", lambda v: v >= 0, "must be a whole number ≥ 0",
-          "set seed = 1 (any whole number ≥ 0)")
+    check("paths.seed", lambda v: run_setting_problem("seed", v, "") is None,
+          "must be a whole number ≥ 0", "set seed = 1 (any whole number ≥ 0)")
 
     fees: dict[int, float] = {}
     for day, fee in values["costs.visit_fee_by_weekday"].items():
@@ -1121,10 +1145,44 @@ def _read_dispense(root: Path, terminals: pd.DataFrame, notices: list[str]) -> p
     amount = _numbers(table, "amount", problems, what="amount", minimum=0,
                       empty_ok=(status == "down").to_numpy())
     _check_duplicate_days(table, dates, problems)
+    _check_outlying_dates(table, dates, problems)
     _raise_if(problems)
     out = pd.DataFrame({"terminal_id": frame["terminal_id"], "date": dates,
                         "amount": amount, "status": status})
     return out.sort_values(["terminal_id", "date"], ignore_index=True, kind="stable")
+
+
+MAX_DATE_GAP_DAYS = 31      # a few rows this far after all the others are a typo
+MAX_OUTLYING_ROWS = 20
+
+
+def _check_outlying_dates(table, dates: pd.Series, problems: list[Problem]) -> None:
+    """A dispense date after today, or one of a few rows dated more than
+    ``MAX_DATE_GAP_DAYS`` after all the others (a mistyped year would otherwise move the whole
+    plan, whose first day follows the last date), is a problem naming its line."""
+    valid = dates.notna()
+    if not valid.any():
+        return
+    today = pd.Timestamp.today().normalize()
+    table.flag(problems, (dates > today).to_numpy() & valid.to_numpy(), "date",
+               lambda i: f"date {dates.iloc[i]:%Y-%m-%d} lies after today "
+                         f"({today:%Y-%m-%d}): a dispense record cannot be from the future",
+               "correct the date, or remove the row")
+    days = np.sort(dates[valid & (dates <= today)].unique())
+    if len(days) < 2:
+        return
+    gaps = np.diff(days) > np.timedelta64(MAX_DATE_GAP_DAYS, "D")
+    if not gaps.any():
+        return
+    cut = days[int(np.flatnonzero(gaps)[-1]) + 1]         # first date after the last big gap
+    late = (dates >= cut).to_numpy() & valid.to_numpy() & (dates <= today).to_numpy()
+    if 0 < late.sum() <= min(MAX_OUTLYING_ROWS, 0.01 * valid.sum()):
+        before = days[days < cut].max()
+        table.flag(problems, late, "date",
+                   lambda i: f"date {dates.iloc[i]:%Y-%m-%d} lies "
+                             f"{(dates.iloc[i] - before).days:,} days after the rest of the "
+                             f"history (which ends {pd.Timestamp(before):%Y-%m-%d})",
+                   "correct the date (a mistyped year?), or remove the row")
 
 
 def _read_committed(root: Path, terminals: pd.DataFrame, start: pd.Timestamp, horizon: int,

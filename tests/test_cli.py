@@ -90,3 +90,59 @@ def test_backtest_on_tiny_writes_tables_and_chart(tmp_path):
     assert result.exit_code == 0, result.output
     assert "planner" in result.output and "perfect-foresight" in result.output.lower()
     assert {"backtest.csv", "backtest.json", "backtest.png"} <= {p.name for p in out.iterdir()}
+
+
+@pytest.mark.parametrize("command, extra", [("plan", []), ("forecast", []),
+                                            ("backtest", ["--weeks", "1"])])
+def test_out_never_deletes_a_users_folder(tiny_dir, tmp_path, command, extra):
+    precious = tmp_path / "precious"
+    (precious / "sub").mkdir(parents=True)
+    (precious / "thesis.txt").write_text("years of work")
+    result = runner.invoke(app, [command, str(tiny_dir), "--out", str(precious), *extra])
+    assert result.exit_code == 2
+    assert "did not write" in _plain(result.output)
+    assert (precious / "thesis.txt").read_text() == "years of work"
+    assert (precious / "sub").is_dir()
+    assert not list(tmp_path.glob(".precious.partial-*"))
+
+
+def test_out_naming_the_scenario_or_a_file_is_refused(tiny_dir, tmp_path):
+    before = sorted(p.name for p in tiny_dir.iterdir())
+    for target in (tiny_dir, tiny_dir.parent):
+        result = runner.invoke(app, ["plan", str(tiny_dir), "--out", str(target)])
+        assert result.exit_code == 2 and "scenario folder" in _plain(result.output)
+    assert sorted(p.name for p in tiny_dir.iterdir()) == before
+    afile = tmp_path / "afile"
+    afile.write_text("keep")
+    result = runner.invoke(app, ["plan", str(tiny_dir), "--out", str(afile)])
+    assert result.exit_code == 2 and "existing file" in _plain(result.output)
+    assert afile.read_text() == "keep"
+
+
+@pytest.mark.parametrize("command", ["check", "plan"])
+def test_json_on_bad_input_prints_the_problems_as_json(tmp_path, command):
+    import json
+
+    args = [command, str(tmp_path / "missing"), "--json"]
+    if command == "plan":
+        args += ["--out", str(tmp_path / "run")]
+    result = runner.invoke(app, args)
+    assert result.exit_code == 2
+    start = result.stdout.index("{")
+    data = json.loads(result.stdout[start:result.stdout.rindex("}") + 1])
+    assert data["ok"] is False and data["exit_code"] == 2
+    assert data["problems"][0]["problem"] == "scenario folder not found"
+    assert set(data["problems"][0]) == {"file", "line", "column", "problem", "fix"}
+
+
+@pytest.mark.parametrize("args, text", [
+    (["--horizon", "367"], "--horizon must lie between 1 and 366"),
+    (["--paths", "100001"], "--paths must lie between 1 and 100,000"),
+    (["--seed", "-1"], "--seed must lie between 0 and"),
+    (["--max-memory", "0.05"], "more than the --max-memory limit"),
+])
+def test_options_keep_the_scenarios_limits_and_memory(tiny_dir, tmp_path, args, text):
+    result = runner.invoke(app, ["plan", str(tiny_dir), "--out", str(tmp_path / "run"), *args])
+    assert result.exit_code == 2
+    assert text in _plain(result.output)
+    assert not (tmp_path / "run").exists()

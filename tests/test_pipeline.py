@@ -16,6 +16,7 @@ import pytest
 from typer.testing import CliRunner
 
 import planner
+from planner.runfolder import MARKER
 from planner.cli import app
 from planner.pipeline import PlanOptions, run_plan
 from planner.scenario import WEEKDAYS, load_scenario
@@ -24,7 +25,7 @@ REPO = Path(__file__).resolve().parents[1]
 TINY = REPO / "planner" / "demo" / "tiny"
 FAST = PlanOptions(path_count=120, origins=2)
 RUN_FILES = {"plan.csv", "orders.csv", "costs.csv", "summary.json", "out_of_sample.csv",
-             "routines.csv", "diagnostics.csv", "report.html", "plan.xlsx"}
+             "routines.csv", "diagnostics.csv", "report.html", "plan.xlsx", MARKER}
 
 
 @pytest.fixture(scope="module")

@@ -296,6 +296,14 @@ CASES = [
     # a ';'-separated file that writes '1.500' could mean 1.5 or 1500: refuse to guess
     case("semicolon-ambiguous", D, lambda t: cell(2, "amount", "8.100")(t).replace(",", ";"),
          2, "amount", "ambiguous in a file separated by ';': 8.1 or 8100?"),
+    # a mistyped year would move the whole plan; a record cannot be from the future
+    case("dispense-date-in-the-future", D, append("BRH-001,2030-01-01,9000.0,ok"), 253, "date",
+         "date 2030-01-01 lies after today"),
+    # identifiers a spreadsheet would run as formulas are refused, so every export is safe
+    case("terminal-id-as-formula", T, replace("BRH-003,", "=HYPERLINK(1),"), 4, "terminal_id",
+         "begins with a character a spreadsheet reads as a formula"),
+    case("depot-name-as-formula", "depots.csv", replace("Brenholm,", "@Brenholm,", ), 2,
+         "depot", "begins with a character a spreadsheet reads as a formula"),
     case("decimal-point-in-comma-file", D,
          lambda t: _european(t, thousands=False).replace("8470,00", "8470.5"), 3, "amount",
          "'8470.5' has a decimal point, but this file writes decimal commas"),
@@ -724,3 +732,19 @@ def test_garbage_settings_raise_only_input_error(tiny_dir, key, value):
              for line in original.splitlines()]
     rewrite(tiny_dir, S, lambda _: "\n".join(lines) + "\n")
     _load_or_input_error(tiny_dir)
+
+
+def test_a_few_rows_dated_far_after_the_rest_are_refused(tmp_path):
+    # the hold-out's history ends 2025-12-28; one row typed with the next year's date
+    import shutil
+
+    from planner.demo import demo_path
+
+    folder = Path(shutil.copytree(demo_path("holdout/brannock"), tmp_path / "net"))
+    with open(folder / "dispense.csv", "a", encoding="utf-8") as fh:
+        fh.write("BNK-001,2026-11-28,9000,ok\n")
+    with pytest.raises(InputError) as info:
+        load_scenario(folder)
+    (problem,) = info.value.problems
+    assert problem.column == "date" and problem.line is not None
+    assert "335 days after the rest of the history (which ends 2025-12-28)" in str(problem)
