@@ -9,6 +9,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
+from planner.runfolder import MARKER
 from planner.compare import (apply_overrides, parse_override, parse_variants,
                              read_variant_file, variant_from_sets)
 from planner.errors import InputError
@@ -176,7 +177,7 @@ def test_comparison_run_folder_files(common, tmp_path):
                               options=options, forecast=forecast, fresh=fresh)
     with RunFolderWriter(tmp_path / "cmp") as writer:
         write_compare(writer, result)
-    names = sorted(p.name for p in (tmp_path / "cmp").iterdir())
+    names = sorted(p.name for p in (tmp_path / "cmp").iterdir() if p.name != MARKER)
     assert names == ["compare.csv", "compare.json", "compare.png", "compare_terminals.csv"]
     assert (tmp_path / "cmp" / "compare.png").read_bytes()[:4] == b"\x89PNG"
     assert result.summary["headline"][0].startswith("service.max_dry_probability=0.01")

@@ -9,6 +9,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
+from planner.runfolder import MARKER
 from planner.costs import CostRates
 from planner.evaluate.backtest import execute_days, realised_demand
 
@@ -141,7 +142,7 @@ def test_backtest_run_folder_files(short_backtest, tmp_path):
     _, result = short_backtest
     with RunFolderWriter(tmp_path / "bt") as writer:
         write_backtest(writer, result)
-    names = sorted(p.name for p in (tmp_path / "bt").iterdir())
+    names = sorted(p.name for p in (tmp_path / "bt").iterdir() if p.name != MARKER)
     assert names == ["backtest.csv", "backtest.json", "backtest.png", "backtest_daily.csv",
                      "backtest_terminals.csv"]
     assert (tmp_path / "bt" / "backtest.png").read_bytes()[:4] == b"\x89PNG"

@@ -135,3 +135,16 @@ def test_write_plan_xlsx_into_a_run_folder(run, tmp_path):
     assert path.stat().st_size == size > 0
     assert stat.S_IMODE(path.stat().st_mode) == 0o600
     assert openpyxl.load_workbook(path).sheetnames[0] == SUMMARY_SHEET
+
+
+def test_the_same_plan_gives_the_same_bytes(run, tmp_path, monkeypatch):
+    import time
+
+    real = time.time
+    for k in range(2):
+        # the second write an hour later (by the clock every writer reads)
+        monkeypatch.setattr(time, "time", lambda: real() + 3600.0 * k)
+        with RunFolderWriter(tmp_path / f"run{k}") as writer:
+            write_plan_xlsx(run, writer)
+    assert (tmp_path / "run0" / "plan.xlsx").read_bytes() == \
+        (tmp_path / "run1" / "plan.xlsx").read_bytes()

@@ -344,7 +344,8 @@ class TerminalChart:
             _money_axis(self.ax_b)
             self.ax_d.xaxis.set_major_formatter(DateFormatter("%d %b"))
             self.ax_d.xaxis.set_major_locator(MaxNLocator(6))
-            self.ax_r.yaxis.set_major_formatter(PercentFormatter(1.0, decimals=0))
+            # decimals from the axis range: a 0-2 % axis reads 0.5 %, 1.0 %, … not 1 %, 1 %
+            self.ax_r.yaxis.set_major_formatter(PercentFormatter(1.0, decimals=None))
             self.ax_r.yaxis.set_major_locator(MaxNLocator(4))
             for ax in (self.ax_b, self.ax_r):
                 ax.grid(axis="x", visible=False)

@@ -15,6 +15,7 @@ import datetime as _dt
 import io
 import math
 import re
+import zipfile
 from typing import Any, Sequence
 
 import numpy as np
@@ -57,14 +58,41 @@ def write_plan_xlsx(run: Any, writer: Any, *, name: str = "plan.xlsx") -> int:
     """
     buffer = io.BytesIO()
     plan_workbook(run).save(buffer)
-    data = buffer.getvalue()
+    data = _fixed_zip(buffer.getvalue())
     writer.write_bytes(name, data)
     return len(data)
+
+
+def _fixed_zip(data: bytes) -> bytes:
+    """The same workbook with every zip entry dated 1980-01-01, in the same order, and the
+    document's "modified" date equal to its "created" date (the plan's first day, set in
+    :func:`plan_workbook`), so that the same plan gives the same bytes."""
+    source = zipfile.ZipFile(io.BytesIO(data))
+    out = io.BytesIO()
+    with zipfile.ZipFile(out, "w", compression=zipfile.ZIP_DEFLATED) as target:
+        for info in source.infolist():
+            fixed = zipfile.ZipInfo(info.filename, date_time=(1980, 1, 1, 0, 0, 0))
+            fixed.compress_type = zipfile.ZIP_DEFLATED
+            fixed.external_attr = 0o600 << 16
+            content = source.read(info.filename)
+            if info.filename == "docProps/core.xml":
+                # openpyxl stamps the saving moment as "modified": use the document's own date
+                text = content.decode("utf-8")
+                created = re.search(r"<dcterms:created[^>]*>([^<]*)<", text)
+                if created:
+                    text = re.sub(r"(<dcterms:modified[^>]*>)[^<]*(<)",
+                                  lambda m: m.group(1) + created.group(1) + m.group(2), text)
+                content = text.encode("utf-8")
+            target.writestr(fixed, content)
+    return out.getvalue()
 
 
 def plan_workbook(run: Any) -> Workbook:
     """The plan workbook: a summary sheet first, then one sheet per depot."""
     wb = Workbook()
+    # the document's dates are the plan's first day, not the moment of writing
+    first = pd.Timestamp(getattr(run.scenario, "start_date", "2000-01-01")).to_pydatetime()
+    wb.properties.created = wb.properties.modified = first
     summary = wb.active
     summary.title = SUMMARY_SHEET
     currency = str(getattr(run.scenario, "currency", "") or "")
