@@ -301,7 +301,14 @@ def forecast(
         if quiet:
             return
         _print_warnings(result.scenario.warnings, quiet)
-        console.print(_frame_table(result.by_model, "Forecast accuracy by model "
+        from planner.forecast.models import model_label
+
+        shown = result.by_model.copy()
+        if "model" in shown.columns:
+            shown["model"] = shown["model"].map(model_label)
+        elif shown.index.name == "model":
+            shown.index = shown.index.map(model_label)
+        console.print(_frame_table(shown, "Forecast accuracy by model "
                                                     "(median over terminals)"))
         console.print("Champion per terminal and its reason: champions.csv in the run folder.")
         console.print(f"Run folder written: [bold]{result.run_folder}[/bold]")

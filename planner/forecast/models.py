@@ -256,6 +256,21 @@ def _offset(exog: np.ndarray | None, column: int | None, n: int) -> np.ndarray:
 # --------------------------------------------------------------------------------------------
 
 
+# Plain names for people (report, spreadsheet, terminal); the codes stay in CSV columns.
+MODEL_LABELS = {
+    "seasonal_naive": "weekly seasonal naive",
+    "holt_winters": "Holt-Winters",
+    "regression_arima": "regression with ARIMA errors",
+    "local_level": "local level",
+    "network_profile": "network weekday profile",
+}
+
+
+def model_label(code: str) -> str:
+    """The plain name of a model code (:data:`MODEL_LABELS`; the code itself if unknown)."""
+    return MODEL_LABELS.get(str(code), str(code))
+
+
 class SeasonalNaive(DemandModel):
     """Weekly seasonal naive: tomorrow's demand is demand seven days before.
 

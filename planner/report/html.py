@@ -23,6 +23,7 @@ from typing import Any, Iterable, Sequence
 import numpy as np
 import pandas as pd
 
+from planner.forecast.models import model_label
 from planner.report import charts
 from planner.report.extras import (Evaluation, as_backtest, as_comparison, as_diagnostics,
                                    as_evaluation)
@@ -492,7 +493,7 @@ def _terminal_section(ctx: _Context) -> Section:
         if costs is not None and tid in costs.index and "total" in costs:
             facts.append(f"expected cost {_money_cur(costs.loc[tid, 'total'], ctx.currency)}")
         if model:
-            facts.append(f"forecast model {esc(model)}")
+            facts.append(f"forecast model {esc(model_label(model))}")
         note = (f"<p class='note'>{esc(ctx.notes[i])}</p>" if ctx.notes[i] else "")
         cards.append(
             f"<article class='terminal' id='{ctx.slugs[i]}'>"
@@ -582,7 +583,7 @@ def _accuracy_section(ctx: _Context) -> Section | None:
         else pd.Series(dtype=int)
     rows = []
     for model, r in by_model.iterrows():
-        rows.append([esc(model)] + [_measure(c, r[c]) for c in measures]
+        rows.append([esc(model_label(model))] + [_measure(c, r[c]) for c in measures]
                     + [_int(wins.get(model, 0))])
     table1 = _table(["model"] + [labels[c] for c in measures] + ["champion of"], rows,
                     numeric=range(1, len(measures) + 2),
@@ -596,7 +597,7 @@ def _accuracy_section(ctx: _Context) -> Section | None:
             model = str(c.get("model", ""))
             hit = acc[(acc["terminal_id"] == tid) & (acc["model"] == model)]
             vals = [_measure(m, hit.iloc[0][m]) if len(hit) else "—" for m in measures]
-            rows2.append([_term_link(ctx, tid), esc(model)] + vals
+            rows2.append([_term_link(ctx, tid), esc(model_label(model))] + vals
                          + [esc(str(c.get("reason", "")))])
     table2 = _table(["terminal", "champion"] + [labels[c] for c in measures] + ["why chosen"],
                     rows2, numeric=range(2, len(measures) + 2)) if rows2 else ""
