@@ -267,11 +267,14 @@ def _read_text(root: Path, file: str, notices: list[str], *, what: str,
                must_exist: bool = True) -> str | None:
     """Read and decode one text file of the folder; None when an optional file is absent."""
     path = root / file
-    if not path.is_file():
+    if not path.exists():
         if not must_exist:
             return None
         raise InputError(Problem(file, f"file not found in the scenario folder {root.name}",
                                  f"create {file} with {what}"))
+    if not path.is_file():
+        raise InputError(Problem(file, "is not a regular file (a folder, a device or a pipe)",
+                                 f"put a text file {file} with {what} in its place"))
     try:
         raw = path.read_bytes()
     except OSError as exc:
@@ -290,8 +293,10 @@ def _read_text(root: Path, file: str, notices: list[str], *, what: str,
             text = raw.decode("utf-8-sig")
         except UnicodeDecodeError:
             if b"\x00" in raw:
+                kind = ("plain text (UTF-8)" if file.endswith(".toml")
+                        else "'CSV UTF-8'")
                 raise InputError(Problem(file, "the file holds binary data (NUL bytes), not "
-                                               "text", "save it as 'CSV UTF-8'")) from None
+                                               "text", f"save it as {kind}")) from None
             try:
                 text, encoding = raw.decode("cp1252"), "Windows-1252"
             except UnicodeDecodeError:
@@ -466,7 +471,7 @@ def _read_csv(root: Path, file: str, required: list[str], optional: list[str],
     missing = [c for c in required if c not in header]
     if missing and len(missing) == len(required):
         problems.append(Problem(file, "the first line names none of the required columns "
-                                      f"(it reads {_show(header_line)})",
+                                      "(is this the right file?)",
                                 f"the first line must be the header: {','.join(required)}",
                                 line=header_at))
         missing = []
@@ -508,7 +513,7 @@ _DOT_THOUSANDS = r"[+-]?[0-9]{1,3}(?:\.[0-9]{3})+"
 
 def _numbers(table: _Table, col: str, problems: list[Problem], *, what: str,
              minimum: float | None = None, strict: bool = False,
-             empty_ok: Any = False) -> np.ndarray:
+             empty_ok: Any = False, example: str = "12000") -> np.ndarray:
     """Parse a numeric column to float64; report every cell that is empty (unless
     ``empty_ok``, a bool or a row mask), does not parse, is not finite or lies below
     ``minimum`` (or at it, if ``strict``). Bad cells are NaN in the result."""
@@ -538,10 +543,10 @@ def _numbers(table: _Table, col: str, problems: list[Problem], *, what: str,
     values[failed] = np.nan
     allowed_empty = np.broadcast_to(np.asarray(empty_ok, dtype=bool), empty.shape)
     table.flag(problems, empty & ~allowed_empty, col, f"{what} is empty",
-               f"write the {what} as a number, e.g. 12000")
+               f"write the {what} as a number, e.g. {example}")
     table.flag(problems, non_finite, col,
                lambda i: f"{what} {_show(cells.iloc[i])} is not a finite number",
-               f"write the {what} as an ordinary number, e.g. 12000")
+               f"write the {what} as an ordinary number, e.g. {example}")
     decimal = "," if table.decimal_comma else "."
     if table.decimal_comma:
         table.flag(problems, ambiguous, col,
@@ -557,7 +562,8 @@ def _numbers(table: _Table, col: str, problems: list[Problem], *, what: str,
                    "write it without a thousands separator")
     table.flag(problems, bad, col,
                lambda i: f"{what} {_show(cells.iloc[i])} does not parse as a number",
-               f"write a plain number such as 12000{'' if decimal == '.' else ' or 12000,50'} "
+               f"write a plain number such as {example}"
+               f"{'' if decimal == '.' or example != '12000' else ' or 12000,50'} "
                "(no currency sign, unit or thousands separator)")
     if minimum is not None:
         low = (values <= minimum) if strict else (values < minimum)
@@ -1038,7 +1044,8 @@ def _read_depots(root: Path, notices: list[str]) -> pd.DataFrame:
 
 
 def _crews(table: _Table, col: str, problems: list[Problem], empty_ok: bool) -> np.ndarray:
-    values = _numbers(table, col, problems, what="crew limit", minimum=0, empty_ok=empty_ok)
+    values = _numbers(table, col, problems, what="crew limit", minimum=0, empty_ok=empty_ok,
+                      example="2")
     table.flag(problems, np.isfinite(values) & (values % 1 != 0), col,
                lambda i: f"crew limit {table.frame[col].iloc[i]} is not a whole number",
                "write a whole number of visits per day")

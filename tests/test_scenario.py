@@ -748,3 +748,38 @@ def test_a_few_rows_dated_far_after_the_rest_are_refused(tmp_path):
     (problem,) = info.value.problems
     assert problem.column == "date" and problem.line is not None
     assert "335 days after the rest of the history (which ends 2025-12-28)" in str(problem)
+
+
+def test_message_nits(tiny_dir):
+    import os
+
+    # a binary scenario.toml is told to be plain text, not CSV
+    settings = (tiny_dir / S).read_bytes()
+    (tiny_dir / S).write_bytes(b"\x00\x01binary\xff")
+    with pytest.raises(InputError, match=r"plain text \(UTF-8\)"):
+        load_scenario(tiny_dir)
+    (tiny_dir / S).write_bytes(settings)
+    # a blank crew limit suggests a value the validator accepts
+    depots = (tiny_dir / "depots.csv").read_text()
+    (tiny_dir / "depots.csv").write_text(depots.replace("Brenholm,2", "Brenholm,"))
+    with pytest.raises(InputError) as info:
+        load_scenario(tiny_dir)
+    assert "e.g. 2" in str(info.value) and "12000" not in str(info.value)
+    (tiny_dir / "depots.csv").write_text(depots)
+    # a pipe in place of dispense.csv is not "not found"
+    dispense = (tiny_dir / D).read_bytes()
+    (tiny_dir / D).unlink()
+    os.mkfifo(tiny_dir / D)
+    with pytest.raises(InputError, match="is not a regular file"):
+        load_scenario(tiny_dir)
+    (tiny_dir / D).unlink()
+    (tiny_dir / D).write_bytes(dispense)
+    # a file of another shape is never quoted back
+    secret = tiny_dir.parent / "secret.txt"
+    secret.write_text("root:$6$hash-of-a-password:19000:0:99999:7:::\n")
+    (tiny_dir / T).unlink()
+    (tiny_dir / T).symlink_to(secret)
+    with pytest.raises(InputError) as info:
+        load_scenario(tiny_dir)
+    assert "hash-of-a-password" not in str(info.value)
+    assert "names none of the required columns" in str(info.value)
