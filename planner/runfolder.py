@@ -12,8 +12,8 @@ What may be replaced (checked before any work, and again at the moment of replac
   included), the scenario folder or any folder containing it, the current directory or any
   folder containing it.
 
-A run holds an advisory lock on ``.<name>.lock`` beside the target from its start to its end:
-a second run to the same target fails at once. Staging folders of the target are removed
+A run holds an advisory lock on ``.<name>.lock`` beside the target from its start to its end
+(and removes the file when it ends): a second run to the same target fails at once. Staging folders of the target are removed
 only by their own run, or by a later run holding the lock (then no live run owns them).
 """
 from __future__ import annotations
@@ -93,9 +93,13 @@ class RunFolderWriter:
     def __init__(self, target: Path, protect: Iterable[Path] = ()):
         self.target = check_target(Path(target), protect)
         self.target.parent.mkdir(parents=True, exist_ok=True)
-        self._lock = open(self.target.parent / f".{self.target.name}.lock", "a")
+        self._lock_path = self.target.parent / f".{self.target.name}.lock"
+        self._lock = open(self._lock_path, "a")
         try:
             fcntl.flock(self._lock, fcntl.LOCK_EX | fcntl.LOCK_NB)
+            # the lock file is removed when a run ends: make sure ours is still the one there
+            if os.stat(self._lock_path).st_ino != os.fstat(self._lock.fileno()).st_ino:
+                raise OSError("the lock file was replaced")
         except OSError:
             self._lock.close()
             raise _refuse(Path(target), "another run is writing to this folder now",
@@ -109,7 +113,10 @@ class RunFolderWriter:
         self.run_id = uuid.uuid4().hex
 
     def _release(self) -> None:
+        """Remove the lock file (still holding the lock, so no other run holds it) and
+        unlock: nothing of the run stays beside the target."""
         if not self._lock.closed:
+            self._lock_path.unlink(missing_ok=True)
             fcntl.flock(self._lock, fcntl.LOCK_UN)
             self._lock.close()
 
