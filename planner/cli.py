@@ -155,7 +155,9 @@ class StageProgress:
 def _frame_table(frame, title: str, max_rows: int = 200) -> Table:
     table = Table(title=title, title_justify="left")
     for col in frame.columns:
-        table.add_column(str(col).replace("_", " "),
+        # long names without spaces (a variant's KEY=VALUE) fold onto the next line instead
+        # of being cut
+        table.add_column(str(col).replace("_", " "), overflow="fold",
                          justify="right" if frame[col].dtype.kind in "iuf" else "left")
     for _, row in frame.head(max_rows).iterrows():
         table.add_row(*[_cell(v) for v in row])
@@ -455,6 +457,20 @@ def _compare_view(table, currency: str):
 
 def run() -> None:  # pragma: no cover - console entry for `python -m planner`
     app()
+
+
+
+def _one_paragraph_help() -> None:
+    """Docstrings keep their source line breaks; help texts are one paragraph each, so the
+    terminal wraps them at its own width (never mid-sentence at the source's)."""
+    for command in app.registered_commands:
+        doc = command.callback.__doc__ if command.callback else None
+        if doc and not command.help:
+            command.help = "\n\n".join(" ".join(part.split())
+                                       for part in doc.strip().split("\n\n"))
+
+
+_one_paragraph_help()
 
 
 if __name__ == "__main__":  # pragma: no cover

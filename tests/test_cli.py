@@ -146,3 +146,28 @@ def test_options_keep_the_scenarios_limits_and_memory(tiny_dir, tmp_path, args, 
     assert result.exit_code == 2
     assert text in _plain(result.output)
     assert not (tmp_path / "run").exists()
+
+
+def test_help_texts_are_paragraphs_wrapped_by_the_terminal():
+    from planner.cli import app as cli_app
+
+    for command in cli_app.registered_commands:
+        for paragraph in (command.help or "").split("\n\n"):
+            assert "\n" not in paragraph, command.name
+
+
+def test_long_variant_names_fold_instead_of_being_cut():
+    import io
+
+    import pandas as pd
+    from rich.console import Console
+
+    from planner.cli import _frame_table
+
+    name = "costs.carry_rate_annual=0.0625;costs.visit_fee=+10%"
+    out = io.StringIO()
+    Console(file=out, width=60).print(_frame_table(pd.DataFrame({"variant": [name],
+                                                                 "cost": [1.0]}), "t"))
+    cells = [line.split("│")[1].strip() for line in out.getvalue().splitlines()
+             if line.startswith("│")]
+    assert "".join(cells) == name and "…" not in out.getvalue()
