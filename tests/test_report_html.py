@@ -384,3 +384,20 @@ def test_large_networks_chart_the_terminals_at_risk_first(small, monkeypatch):
     charted = {t for t in risk if f"alt='Demand, balance and dry risk of {t}'" in page}
     assert len(charted) == 2
     assert min(risk[t] for t in charted) >= max(risk[t] for t in risk if t not in charted)
+
+
+def test_dry_risk_axis_labels_are_distinct_on_a_small_range():
+    # a 0–2.6 % axis once read "0 %, 1 %, 1 %, 2 %, 2 %": the decimals follow the range now
+    import numpy as np
+    import pandas as pd
+
+    from planner.report.charts import TerminalChart
+
+    dates = pd.date_range("2026-12-07", periods=14)
+    chart = TerminalChart()
+    fig = chart.draw(history=None, fan=None, balance=None, dates=dates, visits=None,
+                     loads=None, limit=None, dry_day=np.full(14, 0.005),
+                     dry_cum=np.linspace(0.0, 0.02, 14), target=0.02)
+    fig.canvas.draw()
+    labels = [t.get_text() for t in chart.ax_r.get_yticklabels() if t.get_text()]
+    assert len(labels) >= 3 and len(set(labels)) == len(labels), labels
