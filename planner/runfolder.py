@@ -38,7 +38,7 @@ NEW_FOLDER = "choose a new folder for --out, or remove this one yourself"
 
 
 def _refuse(target: Path, problem: str, fix: str = NEW_FOLDER) -> InputError:
-    return InputError(Problem(str(target), problem, fix, column="--out"))
+    return InputError(Problem("--out", f"{target} {problem}", fix))
 
 
 def check_target(target: Path, protect: Iterable[Path] = ()) -> Path:
