@@ -136,7 +136,7 @@ def test_json_on_bad_input_prints_the_problems_as_json(tmp_path, command):
 
 
 @pytest.mark.parametrize("args, text", [
-    (["--horizon", "367"], "--horizon must lie between 1 and 366"),
+    (["--horizon", "184"], "--horizon must lie between 1 and 183"),
     (["--paths", "100001"], "--paths must lie between 1 and 100,000"),
     (["--seed", "-1"], "--seed must lie between 0 and"),
     (["--max-memory", "0.05"], "more than the --max-memory limit"),

@@ -284,7 +284,7 @@ CASES = [
                                  "lift = -1"), TOML["seed"] + 4, "calendar.events",
          "calendar event 1: lift must be a number > 0"),
     case("horizon-too-long", S, replace("horizon_days = 14", "horizon_days = 10000000000"),
-         TOML["horizon_days"], "planning.horizon_days", "must be at most 366"),
+         TOML["horizon_days"], "planning.horizon_days", "must be at most 183"),
     case("start-date-year-typo", S, replace("[planning]", "start_date = 0026-11-30\n\n"
                                                           "[planning]"),
          TOML["[planning]"], "start_date", "lies outside the years 1970–2199"),
