@@ -670,7 +670,8 @@ class RegressionARIMA(_LogLinearModel):
     root of modulus above ``NEAR_UNIT`` (in the inverse-root sense: the polynomial's roots
     inside ``1 / NEAR_UNIT``), the whole grid is fitted again by exact ML and chosen by its
     AIC, leaving out the orders without differencing whose AR part has a root at the circle
-    (a difference in disguise; their AIC does not compare with the differenced orders');
+    (a difference in disguise; their AIC does not compare with the differenced orders'; an
+    order whose conditional fit already shows such a root is not fitted again at all);
     ``fit_method_`` and :meth:`describe` say so. Elsewhere the two agree to well within
     1 % in their 14-day forecasts (tests: statsmodels' ``macrodata``, demo terminals,
     simulated series), at a fraction of the cost.
@@ -758,9 +759,18 @@ class RegressionARIMA(_LogLinearModel):
         if self.method == "css" and any(_near_unit_root(f["phi"], f["theta"], self.NEAR_UNIT)
                                         for f in fits):
             exact = []
+            by_order = {f["order"]: f for f in fits}
+            integrated = any(o[1] for o in orders)
             for order in orders:
+                near = by_order.get(order)
+                if (integrated and order[1] == 0 and near is not None
+                        and _near_unit_root(near["phi"], np.zeros(0), self.NEAR_UNIT)):
+                    continue      # an AR unit root: the integrated orders stand for it
+                # the conditional fit starts the exact one where it is not itself at the edge
+                start = (None if near is None or _near_unit_root(near["phi"], near["theta"],
+                                                                 self.NEAR_UNIT) else near)
                 try:
-                    exact.append(self._fit_mle(z, X, order))
+                    exact.append(self._fit_mle(z, X, order, start))
                 except (ModelFitError, np.linalg.LinAlgError) as exc:
                     failures.append(f"{order} by exact ML: {exc}")
             if exact:
@@ -805,18 +815,26 @@ class RegressionARIMA(_LogLinearModel):
                 "sigma": math.sqrt(sse / max(n_eff - k, 1)),
                 "aic": n_eff * math.log(sse / n_eff) + 2 * k}
 
-    def _fit_mle(self, z: np.ndarray, X: np.ndarray, order: tuple[int, int, int]
-                 ) -> dict[str, Any]:
+    def _fit_mle(self, z: np.ndarray, X: np.ndarray, order: tuple[int, int, int],
+                 start: dict[str, Any] | None = None) -> dict[str, Any]:
+        """Exact ML by SARIMAX (the variance concentrated out of the likelihood: the same
+        optimum, fewer parameters to search), from ``start`` (a fit of the same order) when
+        given."""
         from statsmodels.tsa.statespace.sarimax import SARIMAX
 
         p, d, q = order
         # the constant goes in as a regressor: SARIMAX's own trend="c" is the intercept of
         # the ARMA recursion, not the mean of the regression; with d = 1 it is not identified
         regressors = X if d == 0 else X[:, 1:]
+        first = None
+        if start is not None:
+            beta0 = np.asarray(start["beta"], float)[1:] if d else np.asarray(start["beta"])
+            first = np.concatenate([beta0, start["phi"], start["theta"]])
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
-            model = SARIMAX(z, exog=regressors, order=order, trend="n")
-            res = model.fit(disp=False, maxiter=200)
+            model = SARIMAX(z, exog=regressors, order=order, trend="n",
+                            concentrate_scale=True)
+            res = model.fit(disp=False, maxiter=200, start_params=first)
             if not res.mle_retvals.get("converged", True):
                 # a hard surface (a root near the circle): Nelder–Mead first, then the
                 # quasi-Newton polish from where it stopped
@@ -824,14 +842,14 @@ class RegressionARIMA(_LogLinearModel):
                 res = model.fit(disp=False, start_params=rough.params, maxiter=500)
         if not res.mle_retvals.get("converged", True):
             raise ModelFitError(f"SARIMAX{order} did not converge")
-        # SARIMAX orders its parameters as exog, AR, MA, variance
+        # SARIMAX orders its parameters as exog, AR, MA (the variance is concentrated out)
         params = np.asarray(res.params)
         k = regressors.shape[1]
         beta, phi, theta = params[:k], params[k:k + p], params[k + p:k + p + q]
         if d:
             beta = np.concatenate(([0.0], beta))
         return {"order": order, "beta": beta, "phi": phi, "theta": theta,
-                "sigma": math.sqrt(params[-1]), "aic": float(res.aic)}
+                "sigma": math.sqrt(float(res.scale)), "aic": float(res.aic)}
 
     def _set_state(self, z: np.ndarray, X: np.ndarray) -> None:
         d = self.order_[1]
