@@ -16,7 +16,11 @@ Per network:
     (cleaned) series, measured in the same run (target: ratio ≤ 3). Each measurement is
     repeated and the fastest kept, interleaved, so load from other programs on the machine
     affects both sides alike.
-(c) **Outlier flags** against the recording errors the generator injected
+(c) **Calibrated bands**, as the stage issues them (a spread factor per side of the median and
+    lead week, fitted to the champions' pinball loss over the network), measured on origins
+    they were not fitted on: each origin's bands widened by the factors fitted on the other
+    origins (leave one origin out), against the uncalibrated bands on the same origins.
+(d) **Outlier flags** against the recording errors the generator injected
     (``truth/injected.csv``; :mod:`bench_outliers`): precision and recall.
 """
 from __future__ import annotations
@@ -114,11 +118,63 @@ def measure(folder: str, repeat: int) -> None:
           f"(backtest of {acc['model'].nunique()} models, 500 paths x 14 days)")
     print(f"    ratio (clean + forecast) / ES fit = {(cl + fc) / es:.2f} (target <= 3); "
           f"forecast alone / ES fit = {fc / es:.2f}")
+    calibrated_coverage(scenario, clean, result)
     if (Path(folder) / "truth" / "injected.csv").is_file():
         o = outliers(Path(folder))
-        print(f"(c) outlier flags against the injected errors: {o['flagged']} flagged, "
+        print(f"(d) outlier flags against the injected errors: {o['flagged']} flagged, "
               f"{o['injected']} injected, precision {o['precision']:.2f}, recall "
               f"{o['recall']:.2f} (targets >= 0.8, >= 0.9)")
+
+
+def calibrated_coverage(scenario, clean, result) -> None:
+    """Section (c) of the module text."""
+    from dataclasses import replace
+
+    import pandas as pd
+
+    from planner.calendar import FEATURE_COLUMNS, calendar_features
+    from planner.forecast import candidate_models
+    from planner.forecast.backtest import (BACKTEST_LEVELS, backtest_model, fit_network_spread,
+                                           origin_days, spread_by_day, widen)
+
+    levels = list(BACKTEST_LEVELS)
+    mid = levels.index(0.5)
+    by_name = {m.name: m for m in candidate_models(
+        None, list(FEATURE_COLUMNS).index("event_log_lift"))}
+    tests = []
+    for tid, g in clean.daily.groupby("terminal_id", sort=False):
+        y = g["demand"].to_numpy(dtype=float)
+        exog = calendar_features(pd.DatetimeIndex(g["date"]), scenario.calendar)[
+            list(FEATURE_COLUMNS)].to_numpy(dtype=float)
+        origins = origin_days(len(y))
+        name = result.champion.loc[tid, "model"]
+        if len(origins) and name in by_name:
+            tests.append(backtest_model(by_name[name], y, exog, origins, 14))
+    n = min(len(bt.origins) for bt in tests)
+    hits = {"80": [0, 0], "95": [0, 0]}
+    count = 0
+    for k in range(n):
+        keep = [j for j in range(n) if j != k]
+        rest = [replace(bt, origins=bt.origins[keep], actual=bt.actual[keep],
+                        point=bt.point[keep], quantiles=bt.quantiles[:, keep],
+                        scale=bt.scale[keep]) for bt in tests]
+        by_day = spread_by_day(fit_network_spread(rest), 14)
+        for bt in tests:
+            raw = bt.quantiles[:, k]
+            cal = widen(raw, raw[mid], by_day)
+            a = bt.actual[k]
+            for j, q in enumerate((raw, cal)):
+                hits["80"][j] += int(((a >= q[levels.index(0.1)]) & (a <= q[levels.index(0.9)])).sum())
+                hits["95"][j] += int(((a >= q[levels.index(0.025)])
+                                      & (a <= q[levels.index(0.975)])).sum())
+            count += a.size
+    factors = fit_network_spread(tests)
+    print("(c) calibrated bands on origins left out of their fit")
+    print(f"    80 % coverage {100 * hits['80'][1] / count:.1f} % (uncalibrated "
+          f"{100 * hits['80'][0] / count:.1f} %); 95 % coverage "
+          f"{100 * hits['95'][1] / count:.1f} % (uncalibrated {100 * hits['95'][0] / count:.1f} %)")
+    print(f"    factors below / above the median: days 1-7 {factors[0, 0]:.2f} / "
+          f"{factors[1, 0]:.2f}, days 8-14 {factors[0, -1]:.2f} / {factors[1, -1]:.2f}")
 
 
 if __name__ == "__main__":

@@ -30,14 +30,16 @@ import inspect
 import weakref
 from collections.abc import Callable, Mapping, Sequence
 from concurrent.futures import ProcessPoolExecutor
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
+from typing import Any
 
 import numpy as np
 import pandas as pd
 
 from planner.calendar import FEATURE_COLUMNS, calendar_features
 from planner.errors import InputError, Problem
-from planner.forecast.backtest import backtest_model, champion_reason, origin_days, rank_models
+from planner.forecast.backtest import (backtest_model, champion_reason, fit_network_spread,
+                                       origin_days, rank_models, spread_by_day, widen)
 from planner.forecast.models import LEVELS, MODELS, DemandModel, ModelFitError
 from planner.forecast.network import NetworkProfile, network_profile
 from planner.forecast.paths import simulate_paths, terminal_seeds
@@ -62,17 +64,23 @@ class FittedTerminal:
     model: DemandModel
     exog_future: np.ndarray
     gap: int
+    spread: np.ndarray | None = None      # [side, lead group] calibrated factors (None: 1)
 
     def draw(self, count: int, seed: np.random.SeedSequence, days: int,
              extra_exog: np.ndarray | None = None) -> np.ndarray:
-        """Demand paths ``[count, days]`` from the first forecast day, drawn from ``seed``;
-        ``extra_exog`` holds the calendar features of the days beyond the stage's last day
-        when ``days`` asks for more."""
+        """Demand paths ``[count, days]`` from the first forecast day, drawn from ``seed``
+        and spread by the calibrated factors around the model's median
+        (:func:`~planner.forecast.backtest.widen`); ``extra_exog`` holds the calendar
+        features of the days beyond the stage's last day when ``days`` asks for more."""
         h = self.gap + int(days)
         fut = self.exog_future
         if h > len(fut):
             fut = np.vstack([fut, np.asarray(extra_exog)[: h - len(fut)]])
-        return simulate_paths(self.model, h, int(count), seed, fut[:h], keep=int(days))
+        paths = simulate_paths(self.model, h, int(count), seed, fut[:h], keep=int(days))
+        if self.spread is None:
+            return paths
+        median = self.model.quantiles(h, fut[:h], (0.5,))[0][self.gap:]
+        return widen(paths, median, spread_by_day(self.spread, h)[:, self.gap:])
 
 
 @dataclass(frozen=True)
@@ -194,6 +202,7 @@ class TerminalForecast:
     fallbacks: list[str]
     residuals: np.ndarray
     fitted: FittedTerminal
+    backtest: Any = None          # the champion's rolling-origin backtest (None without one)
 
 
 def candidate_models(models: Sequence[str | DemandModel] | Mapping[str, DemandModel] | None,
@@ -242,6 +251,7 @@ def forecast_terminal(task: TerminalTask) -> TerminalForecast:
                          f"in {n} days of history")
     metrics: dict[str, dict[str, float]] = {}
     backtested: dict[str, DemandModel] = {}
+    backtests: dict = {}
     if len(origins):
         for proto in task.candidates:
             try:
@@ -251,6 +261,7 @@ def forecast_terminal(task: TerminalTask) -> TerminalForecast:
                 continue
             metrics[proto.name] = result.metrics()
             backtested[proto.name] = result.model
+            backtests[proto.name] = result
             accuracy.append({"terminal_id": tid, "model": proto.name, **metrics[proto.name],
                              "origins": len(origins)})
     ranking = rank_models(metrics, order) if metrics else []
@@ -295,7 +306,20 @@ def forecast_terminal(task: TerminalTask) -> TerminalForecast:
     paths = fitted.draw(task.path_count, task.seed, task.keep)
     return TerminalForecast(tid, paths, quantiles, mean, model.name, score, reason,
                             model.describe(), accuracy, fallbacks,
-                            np.asarray(getattr(model, "residuals_", np.zeros(0))), fitted)
+                            np.asarray(getattr(model, "residuals_", np.zeros(0))), fitted,
+                            backtests.get(model.name) if model.name in metrics else None)
+
+
+def calibrated(result: TerminalForecast, factors: np.ndarray) -> TerminalForecast:
+    """One terminal's quantiles and paths spread by the network's calibrated factors
+    (:func:`~planner.forecast.backtest.fit_network_spread`), around the champion's median;
+    its fitted champion keeps the factors for later draws."""
+    gap, keep = result.fitted.gap, result.paths.shape[1]
+    by_day = spread_by_day(factors, gap + keep)[:, gap:]
+    median = result.quantiles[list(LEVELS).index(0.5)]
+    return replace(result, quantiles=widen(result.quantiles, median, by_day),
+                   paths=widen(result.paths, median, by_day),
+                   fitted=replace(result.fitted, spread=np.asarray(factors, dtype=float)))
 
 
 def _series(clean, terminal_ids: Sequence[str]) -> dict[str, tuple[pd.Timestamp, np.ndarray]]:
@@ -372,6 +396,9 @@ def forecast_scenario(scenario, clean, *, horizon_days: int, path_count: int, se
             results.append(forecast_terminal(task))
             if progress is not None:
                 progress(len(results), len(tasks))
+    # the bands and paths calibrated on the champions' rolling-origin errors (module text)
+    spread = fit_network_spread([r.backtest for r in results if r.backtest is not None])
+    results = [calibrated(r, spread) for r in results]
     fitted = FittedForecast(terminal_ids, dates[0], len(dates), scenario.calendar,
                             tuple(r.fitted for r in results))
     _remember(clean, _fit_key(scenario, origins, candidates), fitted)
