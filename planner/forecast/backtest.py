@@ -180,7 +180,7 @@ def fit_network_spread(backtests: list[ModelBacktest]) -> np.ndarray:
     out = np.ones((2, groups))
     if not backtests or not horizon:
         return out
-    # every terminal's origins side by side (NaN pads the shorter ones): [T·O, day] and
+    # every terminal's origins one after another: [T·O, day] and
     # [level, T·O, day], errors scaled by each origin's MASE scale
     actual = np.concatenate([bt.actual[:, :horizon] / np.asarray(bt.scale, float)[:, None]
                              for bt in backtests])
@@ -198,25 +198,6 @@ def fit_network_spread(backtests: list[ModelBacktest]) -> np.ndarray:
                 for i in rows:
                     w = np.maximum(np.expm1(m[:, days] + c * x[i][:, days]), 0.0) / scale
                     loss += float(np.nansum(pinball(actual[:, days], w, levels[i])))
-                if loss < best_loss - 1e-12 * max(1.0, abs(loss)):
-                    best, best_loss = float(c), loss
-            out[side, g] = best
-    return out
-    sides = (np.flatnonzero(levels < 0.5), np.flatnonzero(levels > 0.5))
-    for g in range(groups):
-        days = slice(g * LEAD_GROUP, min((g + 1) * LEAD_GROUP, horizon))
-        for side, rows in enumerate(sides):
-            best, best_loss = 1.0, math.inf
-            for c in SPREAD_GRID:
-                loss = 0.0
-                for bt in backtests:
-                    q, a = bt.quantiles[:, :, days], bt.actual[:, days]
-                    m = np.log1p(np.maximum(q[mid], 0.0))
-                    scale = np.asarray(bt.scale, dtype=float)[:, None]
-                    for i in rows:
-                        w = np.maximum(np.expm1(m + c * (np.log1p(np.maximum(q[i], 0.0)) - m)),
-                                       0.0)
-                        loss += float(np.nansum(pinball(a, w, levels[i]) / scale))
                 if loss < best_loss - 1e-12 * max(1.0, abs(loss)):
                     best, best_loss = float(c), loss
             out[side, g] = best
