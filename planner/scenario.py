@@ -424,7 +424,7 @@ def _split_careful(text: str, separator: str, file: str) -> tuple:
                                 "opens a value that does not end on this line",
              "close the quote on the same line, or remove it"),
             (wrong, lambda i: f"the row has {len(rows[i])} values but the header has {width} "
-                              "columns",
+                              "columns" + _comma_weekdays_hint(rows[i], header, separator),
              f"give every row one value per column, separated by "
              f"{_SEPARATOR_NAMES[separator]}; put a value that holds the separator in double "
              "quotes")):
@@ -444,6 +444,17 @@ def _needs_strip(text: str) -> bool:
     if text.isascii():
         return any(c in text for c in " \t\x0b\x0c\x1c\x1d\x1e\x1f")
     return re.search(r"[^\S\r\n]", text) is not None
+
+
+def _comma_weekdays_hint(row: list[str], header: list[str], separator: str) -> str:
+    """When the extra values of a too-long row are weekday names (``Mon,Wed,Fri`` in a
+    ``visit_days`` cell), the words that say so; else ""."""
+    words = {w.lower() for w in WEEKDAYS}
+    runs = sum(1 for c in row if c.strip().lower() in words)
+    if "visit_days" in header and runs >= 2:
+        return (": visit_days seems to list its weekdays with "
+                f"{_SEPARATOR_NAMES[separator]} — separate them with | (Mon|Wed|Fri)")
+    return ""
 
 
 def _read_csv(root: Path, file: str, required: list[str], optional: list[str],
@@ -594,7 +605,22 @@ def _dates(table: _Table, col: str, problems: list[Problem], notices: list[str])
     empty = cells == ""
     table.flag(problems, empty, col, "date is empty", "write the date as YYYY-MM-DD, e.g. "
                                                       "2026-03-31")
-    table.flag(problems, parsed.isna() & ~empty, col,
+    bad = parsed.isna() & ~empty
+    slashed = bad & cells.str.fullmatch(r"[0-9]{1,2}/[0-9]{1,2}/[0-9]{4}")
+    if slashed.sum() >= 2 and slashed.sum() >= 0.5 * bad.sum():
+        # one message for the file: the format is the problem, not each row
+        i = int(np.flatnonzero(slashed.to_numpy())[0])
+        example = cells.iloc[i]
+        d, m, y = (int(v) for v in example.split("/"))
+        guess = (f"{y:04d}-{m:02d}-{d:02d} for {example} if it means day/month"
+                 if m <= 12 else f"{y:04d}-{d:02d}-{m:02d} for {example}")
+        problems.append(Problem(
+            table.file, f"{int(slashed.sum())} dates are written with slashes, like "
+                        f"{_show(example)}: day/month or month/day cannot be told apart",
+            f"write dates as YYYY-MM-DD (e.g. {guess}); a spreadsheet can export them so "
+            "with the cell format YYYY-MM-DD", line=table.line(i), column=col))
+        bad = bad & ~slashed
+    table.flag(problems, bad, col,
                lambda i: f"date {_show(cells.iloc[i])} does not parse or does not exist",
                "write dates as YYYY-MM-DD, e.g. 2026-03-31")
     year = parsed.dt.year

@@ -296,6 +296,13 @@ CASES = [
     # a ';'-separated file that writes '1.500' could mean 1.5 or 1500: refuse to guess
     case("semicolon-ambiguous", D, lambda t: cell(2, "amount", "8.100")(t).replace(",", ";"),
          2, "amount", "ambiguous in a file separated by ';': 8.1 or 8100?"),
+    # slash dates: one message for the file, with the exact fix
+    case("slash-dates", D, lambda t: __import__("re").sub(
+        r"(\d{4})-(\d{2})-(\d{2})", r"\3/\2/\1", t), 2, "date",
+         "dates are written with slashes"),
+    # weekdays listed with the file's separator: the row is too long, and the message says why
+    case("visit-days-with-commas", T, replace("Mon|Wed|Fri,", "Mon,Wed,Fri,"), 3, None,
+         "visit_days seems to list its weekdays with ','"),
     # a mistyped year would move the whole plan; a record cannot be from the future
     case("dispense-date-in-the-future", D, append("BRH-001,2030-01-01,9000.0,ok"), 253, "date",
          "date 2030-01-01 lies after today"),
