@@ -165,3 +165,12 @@ def test_compact_table_keeps_one_row_per_policy(short_backtest):
     compact = result.compact()
     assert len(compact) == len(result.table)
     assert "ratio_to_bound" in compact.columns and "carry" not in compact.columns
+
+
+def test_headline_counts_read_as_words():
+    from planner.evaluate.backtest import _count
+
+    assert _count(1, "dry day") == "1 dry day"
+    assert _count(0, "dry day") == "0 dry days"
+    assert _count(2.5, "dry day") == "2.5 dry days"
+    assert _count(12, "week") == "12 weeks"

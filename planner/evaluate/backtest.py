@@ -118,8 +118,16 @@ class BacktestResult:
         """The policy table with the columns a terminal has room for: ``label, total,
         visits, emergency_visits, dry_days, crew_overrun_days, ratio_to_bound,
         saving_vs_best_baseline``."""
-        return self.table[["label", "total", "visits", "emergency_visits", "dry_days",
-                           "crew_overrun_days", "ratio_to_bound", "saving_vs_best_baseline"]]
+        out = self.table[["label", "total", "visits", "emergency_visits", "dry_days",
+                          "crew_overrun_days", "ratio_to_bound",
+                          "saving_vs_best_baseline"]].copy()
+        # counts are whole numbers, shares percentages (as the headline writes them)
+        for col in ("visits", "emergency_visits", "crew_overrun_days"):
+            out[col] = out[col].round().astype("Int64")
+        out["saving_vs_best_baseline"] = [
+            "—" if pd.isna(v) else f"{100 * float(v):.1f} %"
+            for v in out["saving_vs_best_baseline"]]
+        return out
 
 
 # --------------------------------------------------------------------------------------------
@@ -462,23 +470,32 @@ def _collect(state, policies, baselines, bound, actual, dates, ids, terminals, t
                           schedules=schedules, summary=summary)
 
 
+def _count(n: float, word: str) -> str:
+    """``n word`` with the plural where it belongs ("1 dry day", "2.5 dry days")."""
+    text = f"{n:g}" if isinstance(n, (int, float)) else str(n)
+    return f"{text} {word if text == '1' else word + 's'}"
+
+
 def _headline(s: dict[str, Any]) -> list[str]:
     cur = s["currency"]
     p = s["planner"]
-    out = [f"Backtest {s['first_day']} … {s['last_day']} ({s['weeks']} weeks, "
-           f"{s['terminals']} terminals): planner {p['total']:,.0f} {cur}, "
-           f"{p['dry_days']} dry days, {p['emergency_visits']} emergency visits."]
+    out = [f"Backtest {s['first_day']} … {s['last_day']} ({_count(s['weeks'], 'week')}, "
+           f"{_count(s['terminals'], 'terminal')}): planner {p['total']:,.0f} {cur}, "
+           f"{_count(p['dry_days'], 'dry day')}, "
+           f"{_count(p['emergency_visits'], 'emergency visit')}."]
     if "best_baseline" in s:
         b = s["best_baseline"]
-        out.append(f"Best baseline {b['policy']}: {b['total']:,.0f} {cur}, {b['dry_days']} dry "
-                   f"days; planner / baseline = {p['ratio_to_best_baseline']:.3f} "
+        out.append(f"Best baseline {b['policy']}: {b['total']:,.0f} {cur}, "
+                   f"{_count(b['dry_days'], 'dry day')}; planner / baseline = "
+                   f"{p['ratio_to_best_baseline']:.3f} "
                    f"(saving {p['saving_vs_best_baseline']:.1%}).")
     out.append(f"Perfect-foresight bound {s['bound']:,.0f} {cur}; planner / bound = "
                f"{p['ratio_to_bound']:.3f}.")
     if "value_of_forecast" in s:
         v = s["value_of_forecast"]
         out.append(f"Value of the forecast: planning from seasonal naive paths costs "
-                   f"{v['naive_total']:,.0f} {cur} and {v['naive_dry_days']} dry days; the "
+                   f"{v['naive_total']:,.0f} {cur} and "
+                   f"{_count(v['naive_dry_days'], 'dry day')}; the "
                    f"champion models' plans cost {v['saving_share']:.1%} less "
                    f"({v['saving']:,.0f} {cur}), on the realised demand.")
     return out
