@@ -268,6 +268,8 @@ def plan(
         console.print(_frame_table(result.summary_frame(), "Plan summary"))
         for note in result.notes():
             console.print(f"[yellow]target not reachable[/yellow] {note}", highlight=False)
+        for line in result.advice():
+            console.print(f"[yellow]over the target[/yellow] {line}", highlight=False)
         console.print(f"Run folder written: [bold]{result.run_folder}[/bold]")
 
     _run(debug, action, as_json)

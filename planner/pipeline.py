@@ -108,14 +108,17 @@ class PlanRun:
             ("cash to load in the horizon", f"{s['network']['load_total']:,.0f} {cur}"),
             ("expected cost, horizon + tail (own paths)", f"{s['costs']['total']:,.0f} {cur}"),
             ("solver status, gap", f"{s['solver']['status']}, {s['solver']['gap']:.3%}"),
-            ("terminals over the dry-risk target (own paths)",
-             str(s["service"]["terminals_over_target"])),
         ]
         oos = s.get("out_of_sample")
         if oos:
             rows.append(("expected cost on fresh paths", f"{oos['expected_cost']:,.0f} {cur}"))
-            rows.append(("terminals over the target on fresh paths",
-                         str(oos["terminals_over_target"])))
+            rows.append((f"terminals over the target on {oos['paths']:,} fresh paths (more "
+                         "than 2 standard errors)", str(oos["terminals_over_target"])))
+            rows.append(("mean cycle dry risk on fresh paths",
+                         f"{oos['mean_dry_probability']:.2%} (target "
+                         f"{oos['max_dry_probability']:.1%})"))
+        rows.append(("terminals over the target on the plan's own paths",
+                     str(s["service"]["terminals_over_target"])))
         routines = {r["kind"]: r for r in reversed(s.get("routines", []))}
         base = [r for r in s.get("routines", []) if r["kind"] == "baseline"]
         if base and "plan" in routines:
@@ -128,6 +131,19 @@ class PlanRun:
                          f"{routines['bound']['total']:,.0f} {cur} (plan / bound "
                          f"{routines['plan']['total'] / routines['bound']['total']:.2f})"))
         return pd.DataFrame(rows, columns=["figure", "value"])
+
+    def advice(self) -> list[str]:
+        """One line per terminal over the target on fresh paths: its figure and what the user
+        can do about it (the same lines in the terminal and the report)."""
+        if self.out_of_sample is None:
+            return []
+        frame = self.out_of_sample.frame
+        target = float(self.out_of_sample.summary["max_dry_probability"])
+        return [f"{r.terminal_id}: cycle dry risk {r.dry_probability:.1%} ± "
+                f"{r.dry_probability_se:.1%} on fresh paths against the {target:.1%} target — "
+                "plan with more paths (--paths), set a lower target, or review this machine's "
+                "limit and visit days"
+                for r in frame[frame["over_target"]].itertuples()]
 
     def notes(self) -> list[str]:
         """Per-terminal notes of the optimizer (targets that cannot be met, and why)."""

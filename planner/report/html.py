@@ -247,9 +247,6 @@ def _summary_section(ctx: _Context, evaluation: Evaluation | None) -> Section:
     rows = [
         ("Service target (per visit: the chance of running dry before the next visit)",
          _pct(ctx.target)),
-        ("Terminals over the target (plan's own paths)",
-         _flag_count(service.get("terminals_over_target", over))),
-        ("Highest cycle dry risk of a terminal", _risk(worst, ctx.target)),
     ]
     if oos:
         rows += [
@@ -258,6 +255,11 @@ def _summary_section(ctx: _Context, evaluation: Evaluation | None) -> Section:
             ("Mean cycle dry risk on fresh paths", _pct(float(oos.get("mean_dry_probability",
                                                                        math.nan)))),
         ]
+    rows += [
+        ("Terminals over the target on the plan's own paths",
+         _flag_count(service.get("terminals_over_target", over))),
+        ("Highest cycle dry risk of a terminal (own paths)", _risk(worst, ctx.target)),
+    ]
     if calibration:
         rows.append(("Calibration (validate, tighten, re-solve)",
                      esc(f"{calibration.get('terminals_tightened', 0)} terminal(s) tightened in "
@@ -296,7 +298,8 @@ def _summary_section(ctx: _Context, evaluation: Evaluation | None) -> Section:
                      + "".join(f"<li>{esc(w)}</li>" for w in warnings) + "</ul>")
     body = (
         '<div class="grid2"><div><h3>Key figures</h3>' + key + "</div>"
-        '<div><h3>Dry risk</h3>' + risk + "<h3>Solver</h3>" + solve + "</div></div>"
+        '<div><h3>Dry risk</h3>' + risk + _advice(ctx) + "<h3>Solver</h3>" + solve
+        + "</div></div>"
         "<h3>Expected cost and its parts</h3>" + cost_table + compare + notes_html + warn_html)
     return Section("summary", "Network summary", body)
 
@@ -524,6 +527,19 @@ def _terminal_section(ctx: _Context) -> Section:
                      "cash loaded. Every terminal's visits are in the day-by-day tables above, "
                      "in plan.csv and in plan.xlsx.")
     return Section("terminals", "Terminals", legend + key + "".join(cards))
+
+
+def _advice(ctx: _Context) -> str:
+    """The terminals over the target on fresh paths, each with what the user can do (the
+    lines the terminal prints too, :meth:`planner.pipeline.PlanRun.advice`)."""
+    advice = getattr(ctx.run, "advice", None)
+    lines = advice() if callable(advice) else []
+    if not lines:
+        return ""
+    return (_p("<b>Over the target on fresh paths</b> (an estimate more than two standard "
+               "errors above it; with 500 paths about half the terminals of a plan sitting "
+               "exactly at the target would look over it, so the check uses thousands):")
+            + "<ul>" + "".join(f"<li>{esc(line)}</li>" for line in lines) + "</ul>")
 
 
 def _quality_section(ctx: _Context) -> Section:
