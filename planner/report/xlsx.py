@@ -198,12 +198,23 @@ def _summary_sheet(ws, run: Any, money_format: str) -> None:
         figures.append((f"Expected cost: {PART_LABELS.get(part, part.replace('_', ' '))}",
                         float(pd.to_numeric(costs[part], errors="coerce").sum()), money_format))
     figures += [
-        ("Service target (highest dry risk per terminal)",
+        ("Service target (per visit: the chance of running dry before the next visit)",
          service.get("max_dry_probability", getattr(run.scenario, "max_dry_probability", None)),
          PERCENT_FORMAT),
-        ("Terminals over the target", service.get("terminals_over_target"), "0"),
-        ("Highest dry risk of a terminal", service.get("worst_dry_probability"),
-         PERCENT_FORMAT),
+    ]
+    oos = s.get("out_of_sample") or {}
+    if oos:
+        figures += [
+            (f"Terminals over the target on {oos.get('paths', 0):,} fresh paths",
+             oos.get("terminals_over_target"), "0"),
+            ("Mean cycle dry risk on fresh paths", oos.get("mean_dry_probability"),
+             PERCENT_FORMAT),
+        ]
+    figures += [
+        ("Terminals over the target on the plan's own paths",
+         service.get("terminals_over_target"), "0"),
+        ("Highest cycle dry risk of a terminal (own paths)",
+         service.get("worst_dry_probability"), PERCENT_FORMAT),
         ("Solver status", str(solver.get("status", "")), None),
         ("Best lower bound", bound if _finite(bound) else "none proven",
          money_format if _finite(bound) else None),
