@@ -206,7 +206,8 @@ def check(
                     result.calendar.to_json(orient="records")),
             }))
             return
-        _print_warnings(result.scenario.warnings, False)
+        _print_warnings(list(result.scenario.warnings) + result.crewless_commitments(), False)
+        console.print(_frame_table(result.understood(), "What the scenario says"))
         console.print(_frame_table(result.quality, f"Data quality — {result.scenario.name}"))
         console.print(_frame_table(result.network_frame(), "Network totals"))
         if len(result.calendar):

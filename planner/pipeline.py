@@ -35,6 +35,53 @@ class CheckResult:
     def network_frame(self) -> pd.DataFrame:
         return pd.DataFrame([self.network])
 
+    def understood(self) -> pd.DataFrame:
+        """What the tool read from the scenario, as ``setting, value`` text rows: currency,
+        first planning day, horizon, mode, fees by weekday, crews per depot and weekday,
+        holidays, paydays, events, committed visits."""
+        from planner.scenario import WEEKDAYS
+
+        sc = self.scenario
+        c = sc.costs
+        fees = " ".join(f"{d} {c.visit_fee_on(k):,.0f}" for k, d in enumerate(WEEKDAYS))
+        cal = sc.calendar
+        rows = [
+            ("currency", sc.currency),
+            ("first planning day", f"{sc.start_date:%a %Y-%m-%d}"),
+            ("horizon", f"{sc.horizon_days} days (plus a look-ahead, not reported)"),
+            ("replenishment", sc.replenishment),
+            ("lock days", f"{sc.lock_days} (only committed visits in them)"),
+            ("visit fee by weekday", f"{fees} {sc.currency}"),
+            ("holidays", (f"{cal.country}" + (f"-{cal.subdivision}" if cal.subdivision else ""))
+             if cal.country else "none declared"),
+            ("paydays", ", ".join(str(p) for p in cal.paydays) or "none declared"),
+            ("events", ", ".join(f"{e.date:%Y-%m-%d} ×{e.lift:g}" for e in cal.events)
+             or "none"),
+            ("service target", f"{sc.max_dry_probability:.1%} per visit cycle"),
+            ("demand paths", f"{sc.path_count:,} (seed {sc.seed})"),
+            ("committed visits", str(len(sc.committed))),
+        ]
+        for depot, row in sc.depots.iterrows():
+            rows.append((f"crews of {depot} (visits per day)",
+                         " ".join(f"{d} {int(row[d])}" for d in WEEKDAYS)))
+        return pd.DataFrame(rows, columns=["setting", "value"])
+
+    def crewless_commitments(self) -> list[str]:
+        """A notice per committed visit on a day its depot has no crew (it is kept: a
+        committed visit happens, and the day is then over its crews)."""
+        from planner.scenario import WEEKDAYS
+
+        sc = self.scenario
+        out = []
+        for tid, date in zip(sc.committed["terminal_id"], sc.committed["date"]):
+            depot = sc.terminals.loc[tid, "depot"]
+            day = WEEKDAYS[pd.Timestamp(date).weekday()]
+            if int(sc.depots.loc[depot, day]) == 0:
+                out.append(f"committed.csv: {tid} is committed on {date:%a %Y-%m-%d}, a day "
+                           f"depot {depot} has no crew; the visit is kept — check the date or "
+                           f"the depot's {day} column")
+        return out
+
 
 def check_scenario(path: str | Path | Scenario) -> CheckResult:
     """Load and validate a scenario and describe the quality of its history."""

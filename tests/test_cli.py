@@ -171,3 +171,20 @@ def test_long_variant_names_fold_instead_of_being_cut():
     cells = [line.split("│")[1].strip() for line in out.getvalue().splitlines()
              if line.startswith("│")]
     assert "".join(cells) == name and "…" not in out.getvalue()
+
+
+def test_check_echoes_what_it_understood_and_warns_of_crewless_commitments(tiny_dir):
+    depots = (tiny_dir / "depots.csv").read_text()
+    (tiny_dir / "depots.csv").write_text(depots.replace("depot,max_visits_per_day",
+                                                        "depot,max_visits_per_day,Tue")
+                                         .replace("Brenholm,2", "Brenholm,2,0"))
+    (tiny_dir / "committed.csv").write_text("terminal_id,date,load\nBRH-001,2026-12-01,40000\n")
+    result = runner.invoke(app, ["check", str(tiny_dir)], terminal_width=200)
+    assert result.exit_code == 0, result.output
+    text = _plain(result.output)
+    for phrase in ("What the scenario says", "first planning day Mon 2026-11-30",
+                   "visit fee by weekday Mon 120", "Sat 180", "paydays last_business_day",
+                   "crews of Brenholm (visits per day) Mon 2 Tue 0 Wed 2",
+                   "committed visits 1", "BRH-001 is committed on Tue 2026-12-01, a day depot "
+                   "Brenholm has no crew"):
+        assert phrase in text, phrase
