@@ -21,12 +21,13 @@ import numpy as np
 
 sys.path.insert(0, os.path.join(os.path.dirname(__file__), os.pardir))
 
+from planner.executor import LocalExecutor  # noqa: E402
 from planner.optimize.schedule import solve_plan  # noqa: E402
 from planner.optimize.synthetic import synthetic_problem  # noqa: E402
 from planner.pipeline import PlanOptions  # noqa: E402
 
 
-def run(terminals: int, args) -> dict:
+def run(terminals: int, args, executor) -> dict:
     made = time.perf_counter()
     problem = synthetic_problem(terminals=terminals, depots=max(1, terminals // 200),
                                 horizon_days=args.horizon, tail_days=args.tail,
@@ -34,7 +35,7 @@ def run(terminals: int, args) -> dict:
                                 mode=args.mode)
     made = time.perf_counter() - made
     started = time.perf_counter()
-    result = solve_plan(problem, time_limit_s=args.time_limit, jobs=args.jobs)
+    result = solve_plan(problem, time_limit_s=args.time_limit, executor=executor)
     elapsed = time.perf_counter() - started
     used = np.zeros_like(problem.crew_limit)
     np.add.at(used, problem.depot_of, result.visits.astype(int))
@@ -66,9 +67,10 @@ def main() -> None:
           f"{args.paths} paths, {args.horizon} + {args.tail} days, mode {args.mode}")
     print(f"{'terminals':>9} {'depots':>6} {'time s':>8} {'status':>10} {'objective':>14} "
           f"{'bound':>14} {'gap':>8} {'depot-days at crew limit':>25}")
+    executor = LocalExecutor(args.jobs or os.cpu_count() or 1)
     runs = []
     for n in args.sizes:
-        r = run(n, args)
+        r = run(n, args, executor)
         res = r["result"]
         runs.append(r)
         print(f"{n:>9} {len(r['problem'].depots):>6} {r['time']:>8.1f} {res.status:>10} "
@@ -81,10 +83,11 @@ def main() -> None:
     if not args.no_free_crews and runs:
         first = runs[0]
         free_problem = replace(first["problem"], crew_limit=10 * first["problem"].crew_limit)
-        free = solve_plan(free_problem, time_limit_s=args.time_limit, jobs=args.jobs)
+        free = solve_plan(free_problem, time_limit_s=args.time_limit, executor=executor)
         extra = first["result"].objective / free.objective - 1.0
         print(f"crew limits bind: {args.sizes[0]} terminals cost {free.objective:,.0f} with crews "
               f"×10 and {first['result'].objective:,.0f} with the limits (+{extra:.2%})")
+    executor.close()
 
 
 if __name__ == "__main__":

@@ -48,8 +48,26 @@ PathsOpt = Annotated[Optional[int], typer.Option(
     "--paths", min=1, help="Number of demand paths (default: the scenario's paths.count).")]
 SeedOpt = Annotated[Optional[int], typer.Option(
     "--seed", help="Random seed for the demand paths (default: the scenario's paths.seed).")]
-JobsOpt = Annotated[int, typer.Option("--jobs", "-j", min=1,
-                                      help="Parallel processes for forecasting.")]
+JobsOpt = Annotated[int, typer.Option(
+    "--jobs", "-j", min=1, help="Worker processes for the per-terminal and per-depot work "
+                                "(with --executor dask and no --scheduler: the workers of the "
+                                "local cluster).")]
+EngineOpt = Annotated[str, typer.Option(
+    "--executor", help="Where the per-terminal and per-depot work runs: 'local' processes "
+                       "or a 'dask' cluster (README, 'Larger networks').")]
+SchedulerOpt = Annotated[Optional[str], typer.Option(
+    "--scheduler", help="With --executor dask: the cluster's scheduler, tls://HOST:PORT (or "
+                        "tcp://HOST:PORT on this machine or with --insecure); without it a "
+                        "local cluster of --jobs workers is started.")]
+TlsCaOpt = Annotated[Optional[str], typer.Option(
+    "--tls-ca-file", help="With a tls:// scheduler: the CA certificate (PEM).")]
+TlsCertOpt = Annotated[Optional[str], typer.Option(
+    "--tls-cert", help="With a tls:// scheduler: this client's certificate (PEM).")]
+TlsKeyOpt = Annotated[Optional[str], typer.Option(
+    "--tls-key", help="With a tls:// scheduler: this client's private key (PEM).")]
+InsecureOpt = Annotated[bool, typer.Option(
+    "--insecure", help="Allow a plain tcp:// scheduler on another machine (plans and "
+                       "dispense histories then cross the network unencrypted).")]
 TimeLimitOpt = Annotated[float, typer.Option("--time-limit", min=1.0,
                                              help="Solver time limit in seconds (per plan).")]
 QuietOpt = Annotated[bool, typer.Option("--quiet", "-q", help="Print only errors.")]
@@ -100,6 +118,33 @@ def _run(debug: bool, action: Callable[[], int | None], as_json: bool = False) -
         raise typer.Exit(1)
     if code:
         raise typer.Exit(code)
+
+
+def _engine(engine: str, scheduler: Optional[str], tls_ca_file: Optional[str],
+            tls_cert: Optional[str], tls_key: Optional[str], insecure: bool,
+            jobs: int) -> dict:
+    """The executor fields of :class:`planner.options.PlanOptions` from the command line
+    (refused settings raise :class:`InputError` before any work)."""
+    from planner.errors import Problem
+    from planner.executor import ClusterSettings, check_cluster_settings
+
+    if engine not in ("local", "dask"):
+        raise InputError(Problem("--executor", f"unknown executor {engine!r}",
+                                 "write --executor local or --executor dask"))
+    given = [name for name, value in (("--scheduler", scheduler), ("--tls-ca-file",
+             tls_ca_file), ("--tls-cert", tls_cert), ("--tls-key", tls_key),
+             ("--insecure", insecure)) if value]
+    if engine == "local":
+        if given:
+            raise InputError(Problem(given[0], f"{given[0]} is given without --executor dask",
+                                     "add --executor dask, or leave it out"))
+        return {"jobs": jobs}
+    cluster = ClusterSettings(address=scheduler, workers=jobs, tls_ca_file=tls_ca_file,
+                              tls_cert=tls_cert, tls_key=tls_key, insecure=insecure)
+    problems = check_cluster_settings(cluster)
+    if problems:
+        raise InputError(problems)
+    return {"jobs": jobs, "engine": "dask", "cluster": cluster}
 
 
 def _scenario_path(scenario: Optional[Path]) -> Path:
@@ -228,6 +273,12 @@ def plan(
     paths: PathsOpt = None,
     seed: SeedOpt = None,
     jobs: JobsOpt = 1,
+    engine: EngineOpt = "local",
+    scheduler: SchedulerOpt = None,
+    tls_ca_file: TlsCaOpt = None,
+    tls_cert: TlsCertOpt = None,
+    tls_key: TlsKeyOpt = None,
+    insecure: InsecureOpt = False,
     time_limit: TimeLimitOpt = 60.0,
     backtest_weeks: Annotated[int, typer.Option(
         "--backtest-weeks", min=0, help="Also replay this many past weeks against the "
@@ -252,10 +303,12 @@ def plan(
     def action() -> None:
         from planner.pipeline import PlanOptions, run_plan
 
-        options = PlanOptions(horizon_days=horizon, path_count=paths, seed=seed, jobs=jobs,
+        options = PlanOptions(horizon_days=horizon, path_count=paths, seed=seed,
                               time_limit_s=time_limit, backtest_weeks=backtest_weeks,
                               what_if=tuple(sets or ()), variant_files=tuple(variant or ()),
-                              max_memory_gb=max_memory)
+                              max_memory_gb=max_memory,
+                              **_engine(engine, scheduler, tls_ca_file, tls_cert, tls_key,
+                                        insecure, jobs))
         with StageProgress(enabled=not (quiet or as_json)) as progress:
             result = run_plan(_scenario_path(scenario), out, options=options,
                               progress=progress)
@@ -367,6 +420,12 @@ def backtest(
         "--origins", min=1, help="Weekly origins of the model-choice backtest inside each "
                                  "weekly plan.")] = 4,
     jobs: JobsOpt = 1,
+    engine: EngineOpt = "local",
+    scheduler: SchedulerOpt = None,
+    tls_ca_file: TlsCaOpt = None,
+    tls_cert: TlsCertOpt = None,
+    tls_key: TlsKeyOpt = None,
+    insecure: InsecureOpt = False,
     time_limit: TimeLimitOpt = 60.0,
     quiet: QuietOpt = False,
     as_json: JsonOpt = False,
@@ -379,8 +438,10 @@ def backtest(
     def action() -> None:
         from planner.pipeline import PlanOptions, run_backtest
 
-        options = PlanOptions(path_count=paths, seed=seed, jobs=jobs, origins=origins,
-                              time_limit_s=time_limit)
+        options = PlanOptions(path_count=paths, seed=seed, origins=origins,
+                              time_limit_s=time_limit,
+                              **_engine(engine, scheduler, tls_ca_file, tls_cert, tls_key,
+                                        insecure, jobs))
         say = None if (quiet or as_json) else (lambda text: errors.print(text, markup=False))
         result = run_backtest(_scenario_path(scenario), out, weeks=weeks, options=options,
                               past_visits=past_visits, progress=say)
@@ -411,6 +472,12 @@ def compare(
     paths: PathsOpt = None,
     seed: SeedOpt = None,
     jobs: JobsOpt = 1,
+    engine: EngineOpt = "local",
+    scheduler: SchedulerOpt = None,
+    tls_ca_file: TlsCaOpt = None,
+    tls_cert: TlsCertOpt = None,
+    tls_key: TlsKeyOpt = None,
+    insecure: InsecureOpt = False,
     time_limit: TimeLimitOpt = 60.0,
     quiet: QuietOpt = False,
     as_json: JsonOpt = False,
@@ -422,7 +489,9 @@ def compare(
     def action() -> None:
         from planner.pipeline import PlanOptions, run_compare
 
-        options = PlanOptions(path_count=paths, seed=seed, jobs=jobs, time_limit_s=time_limit)
+        options = PlanOptions(path_count=paths, seed=seed, time_limit_s=time_limit,
+                              **_engine(engine, scheduler, tls_ca_file, tls_cert, tls_key,
+                                        insecure, jobs))
         result = run_compare(_scenario_path(scenario), out, sets=sets or [],
                              files=variant or [], options=options)
         if as_json:

@@ -47,6 +47,7 @@ import pandas as pd
 from scipy import stats
 
 from planner.errors import InputError, Problem
+from planner.executor import Executor
 
 WEEKDAYS = ("Mon", "Tue", "Wed", "Thu", "Fri", "Sat", "Sun")
 MODES = ("swap", "topup")
@@ -504,7 +505,8 @@ def plan_is_feasible(problem, visits: np.ndarray, loads: np.ndarray) -> bool:
 
 def compare_scenario(scenario, variants: list[Variant], *, options=None, clean=None,
                      forecast=None, fresh: np.ndarray | None = None,
-                     base_name: str = "base") -> "CompareResult":
+                     base_name: str = "base", executor: Executor | None = None
+                     ) -> "CompareResult":
     """Plan the base and every variant on common demand paths and price them on common
     out-of-sample paths (see the module text).
 
@@ -521,11 +523,19 @@ def compare_scenario(scenario, variants: list[Variant], *, options=None, clean=N
     ``result.summary["headline"]``, and writes the run folder with :func:`write_compare`.
     Raises :class:`~planner.errors.InputError` for bad overrides (before any forecasting).
     """
-    from planner.evaluate.simulate import fresh_seed, plan_ledger
-    from planner.optimize import build_problem, solve_plan
-    from planner.options import PlanOptions
+    from planner.options import PlanOptions, run_executor
 
     options = options or PlanOptions()
+    with run_executor(options, executor) as engine:
+        return _compare_scenario(scenario, variants, options, clean, forecast, fresh,
+                                 base_name, engine)
+
+
+def _compare_scenario(scenario, variants, options, clean, forecast, fresh, base_name,
+                      executor) -> "CompareResult":
+    from planner.evaluate.simulate import fresh_seed, plan_ledger
+    from planner.optimize import build_problem, solve_plan
+
     scenario = options.apply(scenario)
     scenarios = {base_name: scenario}
     labels = {base_name: ""}
@@ -547,7 +557,7 @@ def compare_scenario(scenario, variants: list[Variant], *, options=None, clean=N
         forecast = forecast_scenario(scenario, clean,
                                      horizon_days=scenario.horizon_days + tail,
                                      path_count=scenario.path_count, seed=scenario.seed,
-                                     jobs=options.jobs, origins=options.origins)
+                                     executor=executor, origins=options.origins)
     problems = {name: build_problem(sc, forecast.paths, forecast.dates, tail_days=tail)
                 for name, sc in scenarios.items()}
     base_problem = problems[base_name]
@@ -558,7 +568,7 @@ def compare_scenario(scenario, variants: list[Variant], *, options=None, clean=N
         fresh = forecast.draw_paths(fresh_seed_used, base_problem.shape[1],
                                     len(base_problem.dates))
 
-    results = {name: solve_plan(p, time_limit_s=options.time_limit_s)
+    results = {name: solve_plan(p, time_limit_s=options.time_limit_s, executor=executor)
                for name, p in problems.items()}
     pool = [(name, results[name].visits, results[name].loads) for name in problems]
     chosen: dict[str, tuple[str, np.ndarray, np.ndarray, float]] = {}

@@ -2,8 +2,12 @@
 from __future__ import annotations
 
 import os
+from collections.abc import Iterator
+from contextlib import contextmanager
 from dataclasses import dataclass, replace
 from pathlib import Path
+
+from planner.executor import ClusterSettings, Executor, make_executor
 
 # The plan looks further ahead than it reports, so that its end does not cut the last cycle
 # short (README, "How a plan is made", step 5): at least LOOKAHEAD_DAYS
@@ -22,7 +26,9 @@ class PlanOptions:
     horizon_days: int | None = None
     path_count: int | None = None
     seed: int | None = None
-    jobs: int = 1
+    jobs: int = 1                            # worker processes (or local cluster workers)
+    engine: str = "local"                    # "local" processes or a "dask" cluster
+    cluster: ClusterSettings | None = None   # the Dask cluster to use (None: a local one)
     time_limit_s: float = 60.0
     tail_days: int | None = None             # None: see tail_for
     origins: int = 8
@@ -63,6 +69,18 @@ class PlanOptions:
         if problems:
             raise InputError(problems)
         return replace(scenario, **changes) if changes else scenario
+
+
+@contextmanager
+def run_executor(options: PlanOptions, executor: Executor | None = None) -> Iterator[Executor]:
+    """Where a run's per-terminal and per-depot work runs (:mod:`planner.executor`):
+    ``executor`` when given (its owner closes it), else one made from ``options.engine``,
+    ``options.jobs`` and ``options.cluster`` and closed when the run ends."""
+    if executor is not None:
+        yield executor
+        return
+    with make_executor(options.engine, workers=options.jobs, cluster=options.cluster) as made:
+        yield made
 
 
 BASE_BYTES = 300e6       # the interpreter with its libraries (measured: about 0.3 GB)

@@ -14,7 +14,8 @@ import numpy as np
 import pandas as pd
 
 from planner import __version__
-from planner.options import PlanOptions, check_memory
+from planner.executor import Executor
+from planner.options import PlanOptions, check_memory, run_executor
 from planner.scenario import Scenario, load_scenario
 
 @dataclass(frozen=True)
@@ -208,18 +209,26 @@ def _quiet(stage: str, done: int, total: int) -> None:
 
 
 def plan_scenario(source: str | Path | Scenario, *, options: PlanOptions | None = None,
-                  progress: Progress | None = None, **overrides: Any) -> PlanRun:
+                  progress: Progress | None = None, executor: Executor | None = None,
+                  **overrides: Any) -> PlanRun:
     """Plan visits and loads for a scenario; returns every stage's result, writes nothing.
 
     ``overrides`` are fields of :class:`PlanOptions` (``horizon_days=21, seed=3, jobs=2`` …).
+    ``executor``: where the per-terminal and per-depot work runs (default: one made from the
+    options, :func:`planner.options.run_executor`, for this run only).
     Raises :class:`~planner.errors.InputError` on malformed input.
     """
-    progress = progress or _quiet
+    options = replace(options or PlanOptions(), **overrides)
+    with run_executor(options, executor) as engine:
+        return _plan_scenario(source, options, progress or _quiet, engine)
+
+
+def _plan_scenario(source: str | Path | Scenario, options: PlanOptions, progress: Progress,
+                   executor: Executor) -> PlanRun:
     from planner.cleaning import clean_history
     from planner.forecast import forecast_scenario
-    from planner.optimize import build_problem, orders_frame, plan_frame, solve_plan
+    from planner.optimize import build_problem, orders_frame, plan_frame
 
-    options = replace(options or PlanOptions(), **overrides)
     variants = None
     if options.what_if or options.variant_files:
         from planner.compare import parse_variants
@@ -235,11 +244,12 @@ def plan_scenario(source: str | Path | Scenario, *, options: PlanOptions | None 
     tail = options.tail_for(scenario.horizon_days)
     forecast = forecast_scenario(scenario, clean, horizon_days=scenario.horizon_days + tail,
                                  path_count=scenario.path_count, seed=scenario.seed,
-                                 jobs=options.jobs, origins=options.origins,
+                                 executor=executor, origins=options.origins,
                                  progress=lambda done, total: progress("forecast", done, total))
     problem = build_problem(scenario, forecast.paths, forecast.dates, tail_days=tail)
     progress("optimize", 0, len(problem.terminal_ids))
-    problem, result, calibration = plan_problem(scenario, clean, problem, options, progress)
+    problem, result, calibration = plan_problem(scenario, clean, problem, options, progress,
+                                                executor=executor)
     plan = plan_frame(problem, result)
     orders = orders_frame(problem, result)
     costs = result.ledger.parts()
@@ -251,7 +261,8 @@ def plan_scenario(source: str | Path | Scenario, *, options: PlanOptions | None 
     evaluation, check = None, None
     if options.evaluate:
         progress("evaluate", 0, 1)
-        evaluation, check = evaluate_plan(scenario, clean, problem, result, options)
+        evaluation, check = evaluate_plan(scenario, clean, problem, result, options,
+                                          executor=executor)
         progress("evaluate", 1, 1)
         summary["out_of_sample"] = check.summary
         summary["routines"] = json_records(evaluation)
@@ -275,7 +286,7 @@ def plan_scenario(source: str | Path | Scenario, *, options: PlanOptions | None 
             options.backtest_weeks, options=replace(options, backtest_weeks=0, what_if=(),
                                                     variant_files=()),
             progress=lambda text: progress("backtest", next(week, options.backtest_weeks),
-                                           options.backtest_weeks))
+                                           options.backtest_weeks), executor=executor)
         summary["backtest"] = backtest.summary
     if variants:
         from planner.compare import compare_scenario
@@ -283,7 +294,8 @@ def plan_scenario(source: str | Path | Scenario, *, options: PlanOptions | None 
         progress("compare", 0, 1)
         comparison = compare_scenario(scenario, variants, options=options, clean=clean,
                                       forecast=forecast,
-                                      fresh=check.demand if check is not None else None)
+                                      fresh=check.demand if check is not None else None,
+                                      executor=executor)
         summary["what_if"] = comparison.summary
         progress("compare", 1, 1)
     return PlanRun(scenario, options, clean, forecast, problem, result, plan, orders, costs,
@@ -291,7 +303,8 @@ def plan_scenario(source: str | Path | Scenario, *, options: PlanOptions | None 
 
 
 def evaluate_plan(scenario: Scenario, clean: Any, problem: Any, result: Any,
-                  options: PlanOptions) -> tuple[pd.DataFrame, Any]:
+                  options: PlanOptions, *, executor: Executor | None = None
+                  ) -> tuple[pd.DataFrame, Any]:
     """Price the plan, the baseline routines and the perfect-foresight bound on the same
     fresh demand paths (drawn with a seed independent of the optimizer's).
 
@@ -305,7 +318,7 @@ def evaluate_plan(scenario: Scenario, clean: Any, problem: Any, result: Any,
     from planner.costs import cycle_dry_shares
     from planner.evaluate.simulate import over_target
 
-    check = out_of_sample_check(scenario, clean, problem, result, jobs=options.jobs,
+    check = out_of_sample_check(scenario, clean, problem, result, executor=executor,
                                 origins=options.origins)
     fresh = check.demand
     horizon = problem.horizon_days
@@ -440,21 +453,22 @@ def calendar_notices(scenario, clean) -> list[str]:
             for r in found.itertuples()]
 
 
-def plan_problem(scenario, clean, problem, options: PlanOptions, progress=None):
-    """Solve the schedule, calibrated unless ``options.calibrate`` is off
+def plan_problem(scenario, clean, problem, options: PlanOptions, progress=None, *,
+                 executor: Executor | None = None):
+    """Solve the schedule on ``executor``, calibrated unless ``options.calibrate`` is off
     (:func:`planner.evaluate.simulate.calibrated_plan`). Returns ``(problem with its in-sample
     allowance, result, calibration or None)``."""
     from planner.evaluate.simulate import calibrated_plan
     from planner.optimize import solve_plan
 
     def solve(p):
-        return solve_plan(p, time_limit_s=options.time_limit_s,
+        return solve_plan(p, time_limit_s=options.time_limit_s, executor=executor,
                           progress=None if progress is None else
                           (lambda done, total: progress("optimize", done, total)))
 
     if not options.calibrate:
         return problem, solve(problem), None
-    calibration = calibrated_plan(scenario, clean, problem, solve, jobs=options.jobs,
+    calibration = calibrated_plan(scenario, clean, problem, solve, executor=executor,
                                   origins=options.origins)
     result = calibration.result
     result = replace(result, log=tuple(result.log) + calibration.log)
@@ -537,10 +551,16 @@ class ForecastRun:
 def forecast_only(source: str | Path | Scenario, *, options: PlanOptions | None = None,
                   **overrides: Any) -> ForecastRun:
     """Clean the history and forecast every terminal (no plan)."""
+    options = replace(options or PlanOptions(tail_days=0), **overrides)
+    with run_executor(options) as executor:
+        return _forecast_only(source, options, executor)
+
+
+def _forecast_only(source: str | Path | Scenario, options: PlanOptions,
+                   executor: Executor) -> ForecastRun:
     from planner.cleaning import clean_history
     from planner.forecast import forecast_scenario
 
-    options = replace(options or PlanOptions(tail_days=0), **overrides)
     scenario = source if isinstance(source, Scenario) else load_scenario(source)
     scenario = options.apply(scenario)
     clean = clean_history(scenario)
@@ -548,7 +568,7 @@ def forecast_only(source: str | Path | Scenario, *, options: PlanOptions | None 
                                  horizon_days=scenario.horizon_days
                                  + options.tail_for(scenario.horizon_days),
                                  path_count=scenario.path_count, seed=scenario.seed,
-                                 jobs=options.jobs, origins=options.origins)
+                                 executor=executor, origins=options.origins)
     acc = forecast.accuracy
     cols = [c for c in ACCURACY_COLUMNS if c in acc.columns]
     by_model = acc.groupby("model")[cols].median()
@@ -614,9 +634,11 @@ def _diagnose_into(writer, source, terminal_ids, options):
                                       "give an id from terminals.csv") for t in unknown])
         scenario = _subset(scenario, terminal_ids)
     clean = clean_history(scenario)
-    forecast = forecast_scenario(scenario, clean, horizon_days=scenario.horizon_days,
-                                 path_count=min(scenario.path_count, 100), seed=scenario.seed,
-                                 jobs=options.jobs, origins=options.origins)
+    with run_executor(options) as executor:
+        forecast = forecast_scenario(scenario, clean, horizon_days=scenario.horizon_days,
+                                     path_count=min(scenario.path_count, 100),
+                                     seed=scenario.seed, executor=executor,
+                                     origins=options.origins)
     residuals = getattr(forecast, "residuals", None)
     diagnose_scenario(scenario, clean, residuals_by_terminal=residuals, out_dir=writer.staging)
     return scenario, pd.read_csv(writer.staging / "diagnostics.csv")

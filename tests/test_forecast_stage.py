@@ -10,6 +10,7 @@ import pytest
 
 from planner.cleaning import clean_history
 from planner.errors import InputError
+from planner.executor import LocalExecutor
 from planner.forecast import ForecastResult, NetworkProfile, forecast_scenario
 from planner.forecast.network import network_profile
 from planner.scenario import load_scenario
@@ -74,8 +75,9 @@ def test_same_seed_same_paths_other_seed_other_paths_and_parallel_identical(tiny
     assert np.array_equal(again.paths, result.paths)
     other = forecast_scenario(scenario, clean, horizon_days=14, path_count=200, seed=12)
     assert not np.array_equal(other.paths, result.paths)
-    parallel = forecast_scenario(scenario, clean, horizon_days=14, path_count=200, seed=11,
-                                 jobs=2)
+    with LocalExecutor(2) as workers:
+        parallel = forecast_scenario(scenario, clean, horizon_days=14, path_count=200, seed=11,
+                                     executor=workers)
     assert np.array_equal(parallel.paths, result.paths)
     pd.testing.assert_frame_equal(parallel.quantiles, result.quantiles)
     pd.testing.assert_frame_equal(parallel.accuracy, result.accuracy)
@@ -188,7 +190,9 @@ def test_draw_paths_equals_the_stage_for_the_same_seed(tiny, result):
     stage draws with seed s — also for other counts, longer and shorter horizons, a gap before
     the first planning day, a terminal without history, and from a parallel run."""
     scenario, clean = tiny
-    other = forecast_scenario(scenario, clean, horizon_days=14, path_count=50, seed=99, jobs=2)
+    with LocalExecutor(2) as workers:
+        other = forecast_scenario(scenario, clean, horizon_days=14, path_count=50, seed=99,
+                                  executor=workers)
     np.testing.assert_array_equal(other.draw_paths(11, 200, 14), result.paths)
     np.testing.assert_array_equal(result.draw_paths(11, 200), result.paths)
     for days, count in ((21, 30), (5, 70)):

@@ -45,6 +45,7 @@ from planner.evaluate.baselines import (crew_overruns, days_of_cover, fixed_week
                                         trailing_weekday_mean)
 from planner.evaluate.bound import perfect_foresight
 from planner.evaluate.simulate import calibrated_plan, fresh_seed
+from planner.executor import Executor
 
 PLANNER = "planner"
 PLANNER_NAIVE = "planner_naive_forecast"
@@ -232,12 +233,12 @@ def _committed_from(plan_visits: np.ndarray, plan_loads: np.ndarray, dates: pd.D
 def backtest_scenario(scenario, weeks: int, *, options=None,
                       baselines: dict[str, Routine] | None = None,
                       past_visits: pd.DataFrame | None = None,
-                      naive_forecast: bool = True, progress: Callable[[str], None] | None = None
-                      ) -> BacktestResult:
+                      naive_forecast: bool = True, progress: Callable[[str], None] | None = None,
+                      executor: Executor | None = None) -> BacktestResult:
     """Replay the last ``weeks`` weeks of the history (see the module text).
 
-    ``options``: a :class:`planner.pipeline.PlanOptions` (horizon, paths, seed, jobs, time limit,
-    tail days, forecast origins). ``baselines``: name → routine (default
+    ``options``: a :class:`planner.options.PlanOptions` (horizon, paths, seed, time limit,
+    tail days, forecast origins, and the executor settings unless ``executor`` is given). ``baselines``: name → routine (default
     :func:`default_baselines`). ``past_visits``: the user's recorded visits (frame of
     :func:`planner.evaluate.baselines.read_past_visits`), replayed as one more baseline.
     ``naive_forecast``: also run the planner on paths of the weekly seasonal naive model (the
@@ -251,13 +252,21 @@ def backtest_scenario(scenario, weeks: int, *, options=None,
     Raises :class:`~planner.errors.InputError` when the history is shorter than the window
     plus eight weeks of training.
     """
+    from planner.options import PlanOptions, run_executor
+
+    options = options or PlanOptions()
+    with run_executor(options, executor) as engine:
+        return _backtest_scenario(scenario, weeks, options, baselines, past_visits,
+                                  naive_forecast, progress, engine)
+
+
+def _backtest_scenario(scenario, weeks, options, baselines, past_visits, naive_forecast,
+                       progress, executor) -> BacktestResult:
     from planner.cleaning import clean_history
     from planner.errors import InputError, Problem
     from planner.forecast import forecast_scenario
     from planner.optimize import build_problem, solve_plan
-    from planner.options import PlanOptions
 
-    options = options or PlanOptions()
     scenario = options.apply(scenario)
     baselines = default_baselines() if baselines is None else dict(baselines)
     if past_visits is not None:
@@ -295,11 +304,11 @@ def backtest_scenario(scenario, weeks: int, *, options=None,
         days = known.horizon_days + tail
         forecasts = {PLANNER: forecast_scenario(known, clean, horizon_days=days,
                                                 path_count=known.path_count, seed=seed,
-                                                jobs=options.jobs, origins=options.origins)}
+                                                executor=executor, origins=options.origins)}
         if naive_forecast:
             forecasts[PLANNER_NAIVE] = forecast_scenario(
                 known, clean, horizon_days=days, path_count=known.path_count, seed=seed,
-                jobs=options.jobs, origins=options.origins, models=[NAIVE_MODEL])
+                executor=executor, origins=options.origins, models=[NAIVE_MODEL])
         trailing = None
         for policy in policies:
             st = state[policy]
@@ -310,12 +319,14 @@ def backtest_scenario(scenario, weeks: int, *, options=None,
             if policy == PLANNER and options.calibrate:
                 result = calibrated_plan(
                     known, clean, problem,
-                    lambda p: solve_plan(p, time_limit_s=options.time_limit_s),
-                    seed=seed, jobs=options.jobs, origins=options.origins).result
+                    lambda p: solve_plan(p, time_limit_s=options.time_limit_s,
+                                         executor=executor),
+                    seed=seed, executor=executor, origins=options.origins).result
                 plan = (result.visits, result.loads)
                 st.solves.append((result.status, float(result.gap), float(result.time_s)))
             elif policy in (PLANNER, PLANNER_NAIVE):
-                result = solve_plan(problem, time_limit_s=options.time_limit_s)
+                result = solve_plan(problem, time_limit_s=options.time_limit_s,
+                                    executor=executor)
                 plan = (result.visits, result.loads)
                 st.solves.append((result.status, float(result.gap), float(result.time_s)))
             else:

@@ -24,6 +24,7 @@ import numpy as np
 import pandas as pd
 
 from planner.costs import Ledger, cycle_dry_shares, simulate
+from planner.executor import Executor
 
 SHARP_SE = 0.002            # standard error aimed at, at the target (0.2 points)
 MOST_FRESH_VALUES = 60_000_000   # terminals × paths × days priced at once at most
@@ -153,7 +154,7 @@ def check_plan(problem, visits: np.ndarray, loads: np.ndarray, demand: np.ndarra
 
 
 def fresh_paths(scenario, clean, problem, *, seed: int, path_count: int | None = None,
-                jobs: int = 1, origins: int = 8) -> np.ndarray:
+                executor: Executor | None = None, origins: int = 8) -> np.ndarray:
     """Fresh demand paths ``[T, P, D]`` for the problem's terminals and days, drawn with
     ``seed`` (pass :func:`fresh_seed`) from the forecasting stage's fitted models
     (:func:`planner.forecast.fitted_forecast`: the fit of this run when the stage already ran
@@ -162,7 +163,7 @@ def fresh_paths(scenario, clean, problem, *, seed: int, path_count: int | None =
     from planner.forecast import fitted_forecast
 
     days = len(problem.dates)
-    fitted = fitted_forecast(scenario, clean, days=days, jobs=jobs, origins=origins)
+    fitted = fitted_forecast(scenario, clean, days=days, executor=executor, origins=origins)
     paths = fitted.draw_paths(int(seed), int(path_count or problem.shape[1]), days)
     dates = pd.date_range(fitted.start, periods=days, freq="D")
     return _align(fitted.terminal_ids, dates, paths, problem)
@@ -177,7 +178,7 @@ def _align(terminal_ids, dates, paths: np.ndarray, problem) -> np.ndarray:
 
 
 def out_of_sample_check(scenario, clean, problem, result, *, path_count: int | None = None,
-                        seed: int | None = None, jobs: int = 1,
+                        seed: int | None = None, executor: Executor | None = None,
                         origins: int = 8) -> OutOfSampleCheck:
     """Out-of-sample check of a plan (``result`` a :class:`planner.optimize.PlanResult` for
     ``problem``): fresh paths from the scenario's forecast with seed ``fresh_seed(seed)``
@@ -194,14 +195,14 @@ def out_of_sample_check(scenario, clean, problem, result, *, path_count: int | N
     t_count, p_count, d_count = problem.shape
     count = path_count or sharp_path_count(problem.max_dry_probability, t_count, d_count,
                                            least=p_count)
-    demand = fresh_paths(scenario, clean, problem, seed=s, path_count=count, jobs=jobs,
+    demand = fresh_paths(scenario, clean, problem, seed=s, path_count=count, executor=executor,
                          origins=origins)
     return check_plan(problem, result.visits, result.loads, demand, seed=s,
                       reachable=result.reachable)
 
 
 def calibrated_plan(scenario, clean, problem, solve, *, seed: int | None = None,
-                    jobs: int = 1, origins: int = 8):
+                    executor: Executor | None = None, origins: int = 8):
     """The plan of ``problem`` with its chance constraint calibrated on validation paths
     (:mod:`planner.optimize.calibrate`): :func:`sharp_path_count` paths drawn from the fitted
     forecast with ``fresh_seed(seed, 2)``, independent of the plan's own paths and of the
@@ -213,5 +214,5 @@ def calibrated_plan(scenario, clean, problem, solve, *, seed: int | None = None,
     t_count, p_count, d_count = problem.shape
     count = sharp_path_count(problem.max_dry_probability, t_count, d_count, least=p_count)
     validation = fresh_paths(scenario, clean, problem, seed=fresh_seed(base, 2),
-                             path_count=count, jobs=jobs, origins=origins)
+                             path_count=count, executor=executor, origins=origins)
     return calibrate(problem, validation, solve)

@@ -1,6 +1,6 @@
 """The forecasting stage: every terminal's champion model and its demand paths.
 
-For each terminal (in parallel processes when ``jobs > 1``):
+For each terminal (on the run's executor, :mod:`planner.executor`, in chunks of terminals):
 
 1. its cleaned daily demand (``CleanHistory.daily["demand"]``; dry days are already estimated
    there) and the calendar features of its days;
@@ -29,7 +29,6 @@ from __future__ import annotations
 import inspect
 import weakref
 from collections.abc import Callable, Mapping, Sequence
-from concurrent.futures import ProcessPoolExecutor
 from dataclasses import dataclass, field, replace
 from typing import Any
 
@@ -38,6 +37,7 @@ import pandas as pd
 
 from planner.calendar import FEATURE_COLUMNS, calendar_features
 from planner.errors import InputError, Problem
+from planner.executor import Executor, LocalExecutor
 from planner.forecast.backtest import (backtest_model, champion_reason, fit_network_spread,
                                        origin_days, rank_models, spread_by_day, widen)
 from planner.forecast.models import LEVELS, MODELS, DemandModel, ModelFitError
@@ -310,6 +310,21 @@ def forecast_terminal(task: TerminalTask) -> TerminalForecast:
                             backtests.get(model.name) if model.name in metrics else None)
 
 
+def forecast_terminals(tasks: list[TerminalTask]) -> list[TerminalForecast]:
+    """:func:`forecast_terminal` of every task of one chunk (the executor's unit of work)."""
+    return [forecast_terminal(task) for task in tasks]
+
+
+def task_chunks(tasks: list, workers: int, per_worker: int = 4) -> list[list]:
+    """``tasks`` in consecutive chunks: one task each in this process (progress after every
+    terminal), else about ``per_worker`` chunks per worker, so that many small tasks cost few
+    hand-overs to the workers."""
+    if workers <= 1:
+        return [[task] for task in tasks]
+    size = max(1, -(-len(tasks) // (per_worker * workers)))
+    return [list(tasks[i:i + size]) for i in range(0, len(tasks), size)]
+
+
 def calibrated(result: TerminalForecast, factors: np.ndarray) -> TerminalForecast:
     """One terminal's quantiles and paths spread by the network's calibrated factors
     (:func:`~planner.forecast.backtest.fit_network_spread`), around the champion's median;
@@ -340,15 +355,15 @@ def _series(clean, terminal_ids: Sequence[str]) -> dict[str, tuple[pd.Timestamp,
 
 
 def forecast_scenario(scenario, clean, *, horizon_days: int, path_count: int, seed: int,
-                      jobs: int = 1, origins: int = 8,
+                      executor: Executor | None = None, origins: int = 8,
                       models: Sequence[str | DemandModel] | Mapping[str, DemandModel] | None
                       = None, progress: Callable[[int, int], None] | None = None
                       ) -> ForecastResult:
     """Forecast every terminal of ``scenario`` from its cleaned history ``clean``.
 
     ``horizon_days`` from ``scenario.start_date`` (the optimizer asks for its horizon plus
-    tail days); ``path_count`` demand paths per terminal from ``seed``; ``jobs > 1`` runs
-    terminals in that many processes (identical results); ``origins`` weekly backtest
+    tail days); ``path_count`` demand paths per terminal from ``seed``; ``executor`` runs
+    the terminals (:mod:`planner.executor`; default: here; identical results); ``origins`` weekly backtest
     origins; ``models`` the candidates (see :func:`candidate_models`); ``progress(done,
     total)`` is called after each terminal. Returns a
     :class:`ForecastResult`. Raises :class:`~planner.errors.InputError` for an unknown model.
@@ -383,19 +398,11 @@ def forecast_scenario(scenario, clean, *, horizon_days: int, path_count: int, se
             terminal_id=tid, y=y, exog=features[start_row:start_row + len(y) + total],
             horizon_total=total, keep=horizon_days, path_count=path_count, seed=seeds[i],
             origins=origins, candidates=candidates, fallback=fallback))
-    results = []
-    if jobs > 1 and len(tasks) > 1:
-        with ProcessPoolExecutor(max_workers=jobs) as pool:
-            chunk = max(1, len(tasks) // (4 * jobs))
-            for r in pool.map(forecast_terminal, tasks, chunksize=chunk):
-                results.append(r)
-                if progress is not None:
-                    progress(len(results), len(tasks))
-    else:
-        for task in tasks:
-            results.append(forecast_terminal(task))
-            if progress is not None:
-                progress(len(results), len(tasks))
+    runner = executor if executor is not None else LocalExecutor(1)
+    chunks = task_chunks(tasks, runner.workers)
+    done = runner.map(forecast_terminals, chunks, weights=[len(c) for c in chunks],
+                      progress=progress)
+    results = [r for chunk in done for r in chunk]
     # the bands and paths calibrated on the champions' rolling-origin errors (module text)
     spread = fit_network_spread([r.backtest for r in results if r.backtest is not None])
     results = [calibrated(r, spread) for r in results]
@@ -427,7 +434,8 @@ def _remember(clean, key: tuple, fitted: FittedForecast) -> None:
     entry[1][key] = fitted
 
 
-def fitted_forecast(scenario, clean, *, days: int, jobs: int = 1, origins: int = 8,
+def fitted_forecast(scenario, clean, *, days: int, executor: Executor | None = None,
+                    origins: int = 8,
                     models: Sequence[str | DemandModel] | Mapping[str, DemandModel] | None
                     = None) -> FittedForecast:
     """The stage's fitted models for ``scenario`` and its cleaned history ``clean``: those of
@@ -440,7 +448,7 @@ def fitted_forecast(scenario, clean, *, days: int, jobs: int = 1, origins: int =
     if entry is not None and entry[0]() is clean and key in entry[1]:
         return entry[1][key]
     result = forecast_scenario(scenario, clean, horizon_days=int(days), path_count=0, seed=0,
-                               jobs=jobs, origins=origins, models=models)
+                               executor=executor, origins=origins, models=models)
     return result.fitted
 
 

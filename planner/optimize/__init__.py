@@ -3,8 +3,12 @@
 - :mod:`planner.optimize.problem` — :class:`PlanningProblem`, :class:`PlanResult`,
   :func:`build_problem` and the rules every solver shares.
 - :mod:`planner.optimize.schedule` — :func:`solve_plan`, the one entry point for both modes.
-- :mod:`planner.optimize.network` — swap: the decomposition by depot (crew prices, master
-  assignment) over exact per-terminal plans.
+- :mod:`planner.optimize.depots` — the depot runner: one task per depot on the run's executor,
+  and the depots' plans put back together.
+- :mod:`planner.optimize.master` — the master problem of a depot (one plan per terminal, crew
+  limits, crew prices), shared by both modes.
+- :mod:`planner.optimize.swap` — swap: column generation per depot over exact per-terminal
+  plans.
 - :mod:`planner.optimize.cycles` and :mod:`planner.optimize.terminal` — swap cycle costs for
   every load level; one terminal's cheapest plan at given day prices.
 - :mod:`planner.optimize.topup` — the top-up mode.

@@ -1,7 +1,7 @@
 """The planning problem and its result, as arrays (the schedule specification).
 
 :class:`PlanningProblem` is what every solver of the schedule sees (the decomposition in
-:mod:`planner.optimize.network` and the monolithic reference model): terminals, days (horizon +
+:mod:`planner.optimize.swap` and the monolithic reference model): terminals, days (horizon +
 tail days), demand paths, limits, allowed days, committed visits, fees, crew limits, cost rates
 and the service target. :class:`PlanResult` is what every solver answers.
 

@@ -1,29 +1,46 @@
-"""The schedule's entry point: one call for either replenishment mode."""
+"""The schedule's entry point: one call for either replenishment mode.
+
+:func:`solve_plan` splits the network by depot (:mod:`planner.optimize.depots`), has the mode's
+depot solver plan each depot on the run's executor (swap: :mod:`planner.optimize.swap`,
+top-up: :mod:`planner.optimize.topup`) and puts the depots back together.
+"""
 from __future__ import annotations
 
+import time
 from collections.abc import Callable
 
-from planner.optimize.network import GAP_TOLERANCE, solve_swap
+from planner.executor import Executor
+from planner.optimize import swap, topup
+from planner.optimize.depots import network_result, run_depots
+from planner.optimize.master import solver_label
 from planner.optimize.problem import PlanningProblem, PlanResult
-from planner.optimize.topup import solve_topup
+
+GAP_TOLERANCE = swap.GAP_TOLERANCE
 
 
 def solve_plan(problem: PlanningProblem, *, time_limit_s: float = 60.0, solver: str = "highs",
                gap_tolerance: float = GAP_TOLERANCE, exact: bool | None = None,
-               jobs: int | None = None,
+               executor: Executor | None = None,
                progress: Callable[[int, int], None] | None = None) -> PlanResult:
-    """Plan visits and loads for every terminal of ``problem``: swap by the decomposition of
-    :mod:`planner.optimize.network`, top-up by :mod:`planner.optimize.topup`.
+    """Plan visits and loads for every terminal of ``problem``.
 
     ``solver``: ``"highs"`` (CBC when HiGHS is not installed) or ``"cbc"``. ``exact``: prove
     optimality to ~1e-9 instead of ``gap_tolerance`` (default: on for ≤ 20 terminals).
-    ``jobs``: worker processes for the depots (default: the CPUs, at most the depots).
+    ``executor``: where the depots run (:mod:`planner.executor`; default: this process).
     ``progress(terminals_done, terminals)`` is called as each depot's plan is ready.
     The result's objective is the simulated expected cost of the plan; never raises for an
     unreachable service target (the notes say why per terminal).
     """
+    started = time.perf_counter()
     if exact is None:
         exact = problem.shape[0] <= 20
-    solve = solve_swap if problem.mode == "swap" else solve_topup
-    return solve(problem, time_limit_s=time_limit_s, solver=solver,
-                 gap_tolerance=gap_tolerance, exact=exact, jobs=jobs, progress=progress)
+    if problem.mode == "swap":
+        mode, share, label = swap, 0.9, solver_label(solver)
+    else:
+        mode, share, label = topup, 0.85, f"{solver_label(solver)}; {topup.SOLVER_NOTE}"
+    tasks, plans, workers = run_depots(
+        problem, mode.plan_depot, time_limit_s=time_limit_s, share=share, solver=solver,
+        gap_tolerance=gap_tolerance, exact=exact, executor=executor,
+        min_parallel=mode.MIN_PARALLEL, progress=progress)
+    return network_result(problem, tasks, plans, workers=workers, solver=label,
+                          started=started, gap_tolerance=gap_tolerance, exact=exact)

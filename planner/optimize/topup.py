@@ -21,7 +21,7 @@ and the cycle separation of swap does not hold. What is done instead, per termin
   coordinate descent below from three starts (full loads; the mean and the 95 % quantile of
   the demand until the next visit). Exact in cost, not proven optimal.
 - **Larger terminals, order-up-to levels refined on the paths.** First the swap model of these
-  terminals is solved under the crews (:mod:`planner.optimize.network`); its plans, with each
+  terminals is solved under the crews (:mod:`planner.optimize.swap`); its plans, with each
   swap level loaded as the top-up amount, keep every path at least as full as under swap (a
   top-up balance is at least the load), so they meet the service target and fit the crews
   together. Then, at the crew prices of the top-up master, new visit patterns and levels come
@@ -36,11 +36,11 @@ and the cycle separation of swap does not hold. What is done instead, per termin
   demand and drops the service target, minus the crew prices times the crews). It is a true
   bound but a loose one, as it lets every path choose its own loads: on the demo network in
   top-up mode it leaves a gap of 26.8 % (measured 2026-12-02).
-- **Network.** The same master as swap (one plan per terminal, crew limits per day, Lagrangian
-  prices from its LP), with the service target priced rather than imposed: a dry path above
+- **Network.** The same master as swap (:mod:`planner.optimize.master`: one plan per
+  terminal, crew limits per day, Lagrangian prices from its LP), with the service target priced rather than imposed: a dry path above
   the allowance costs more than any plan can save, so the master finds crew-feasible plans
   even when the crews are too few, and prefers meeting every target whenever it can. Depots
-  run side by side in worker processes. Every stage ends by a work limit (patterns priced,
+  run on the run's executor like swap (:mod:`planner.optimize.depots`). Every stage ends by a work limit (patterns priced,
   rounds, passes), so identical input gives an identical plan on any machine; the time limit
   is an emergency stop only, and the log says when it was reached.
 
@@ -52,11 +52,8 @@ above it.
 """
 from __future__ import annotations
 
-from collections.abc import Callable
-
 import itertools
 import math
-import os
 import time
 from dataclasses import replace
 
@@ -64,11 +61,10 @@ import numpy as np
 
 from planner.costs import cycle_dry_counts, simulate
 from planner.optimize import milp, terminal
-from planner.optimize.network import (ColumnPool, _soft_penalty, depot_task_setup,
-                                      run_depot_tasks, solve_depot,
-                                      solve_master_lp, solve_master_mip)
-from planner.optimize.problem import (PlanningProblem, PlanResult, ServiceRule, next_visits,
-                                      result_from_plan, service_rule)
+from planner.optimize.depots import DepotPlan, DepotTask
+from planner.optimize.master import ColumnPool, soft_penalty, solve_master_lp, solve_master_mip
+from planner.optimize.problem import PlanningProblem, ServiceRule, next_visits, service_rule
+from planner.optimize.swap import solve_depot
 
 ENUMERATION_LIMIT = 40_000_000     # plans × paths × days costed when enumerating a terminal
 PATTERN_LIMIT = 300_000            # patterns × paths × days when every pattern gets its loads
@@ -260,65 +256,17 @@ def order_up_to_columns(problem: PlanningProblem, batch: terminal.TerminalBatch,
     return visits, loads, priced
 
 
-_WORK: dict = {}
+MIN_PARALLEL = 20     # terminals below which the depots run in this process
+SOLVER_NOTE = "top-up by enumeration, exact pricing or order-up-to"
 
 
-def _depot_task(args):
-
-    k, deadline, members, sub, rule, notes = depot_task_setup(args, _WORK)
-    return (k, members, notes) + _solve_depot(sub, rule, k, deadline, _WORK["solver"],
-                                             _WORK["gap"])
-
-
-def solve_topup(problem: PlanningProblem, *, time_limit_s: float = 60.0, solver: str = "highs",
-                gap_tolerance: float = 0.005, exact: bool = False,
-                jobs: int | None = None,
-                progress: Callable[[int, int], None] | None = None) -> PlanResult:
-    """Plan a top-up network (see the module text). Depots run side by side in worker
-    processes like swap; ``progress(terminals_done, terminals)`` as each depot is ready.
-    Never raises for unreachable targets."""
-
-    started = time.perf_counter()
-    t_count, _, d_count = problem.shape
-    depots = [k for k in range(len(problem.depots)) if (problem.depot_of == k).any()]
-    sizes = {k: int((problem.depot_of == k).sum()) for k in depots}
-    depots.sort(key=lambda k: -sizes[k])
-    workers = min(jobs or os.cpu_count() or 1, len(depots))
-    last = started + 0.9 * time_limit_s
-    tasks = [(k, 0.85 * time_limit_s * workers * sizes[k] / t_count, last) for k in depots]
-    _WORK.update(problem=problem, solver=solver, gap=gap_tolerance)
-    try:
-        results = run_depot_tasks(_depot_task, tasks, workers, t_count, progress, min_fork=20)
-    finally:
-        _WORK.clear()
-
-    visits = np.zeros((t_count, d_count), bool)
-    loads = np.zeros((t_count, d_count))
-    notes = [""] * t_count
-    log: list[str] = []
-    proven = True
-    bound = 0.0
-    for k, members, depot_notes, v, lo, depot_bound, ok, depot_log, short in results:
-        visits[members], loads[members] = v, lo
-        bound += depot_bound
-        proven &= ok
-        log.extend(depot_log)
-        for i, t in enumerate(members):
-            notes[t] = depot_notes[i]
-            if short[i]:
-                extra = (f"crews of depot {problem.depots[k]} cannot serve every target: dry "
-                         "risk traded for visits")
-                notes[t] = f"{notes[t]}; {extra}" if notes[t] else extra
-    elapsed = time.perf_counter() - started
-    # every depot's bound holds (proven optimum, exact Lagrangian or perfect foresight)
-    result = result_from_plan(problem, visits, loads, status="feasible",
-                              bound=min(bound, np.inf), solver=_name(solver), time_s=elapsed,
-                              notes=tuple(notes), log=tuple(log))
-    if result.bound > result.objective:      # rounding of a proven optimum
-        result = replace(result, bound=result.objective, gap=0.0)
-    if result.gap <= max(gap_tolerance, 1e-6):
-        result = replace(result, status="optimal")
-    return result
+def plan_depot(task: DepotTask) -> DepotPlan:
+    """The top-up plan of one depot's task (the executor's unit of work)."""
+    sub = task.problem
+    rule = service_rule(sub)
+    visits, loads, bound, _, log, short = _solve_depot(sub, rule, task.depot, task.deadline(),
+                                                       task.solver, task.gap_tolerance)
+    return DepotPlan(visits, loads, bound, "feasible", short, rule.notes, log)
 
 
 def _solve_depot(sub: PlanningProblem, rule: ServiceRule, depot: int, deadline: float,
@@ -328,7 +276,7 @@ def _solve_depot(sub: PlanningProblem, rule: ServiceRule, depot: int, deadline: 
     t_count, _, d_count = sub.shape
     name = sub.depots[depot]
     crew = np.maximum(sub.crew_limit[depot], sub.committed.sum(axis=0)).astype(float)
-    penalty = _soft_penalty(sub)
+    penalty = soft_penalty(sub)
     pool = ColumnPool()
     log: list[str] = []
     work = sub.shape[1] * d_count
@@ -649,10 +597,3 @@ def neighbour_plans(problem: PlanningProblem, rows: np.ndarray, visits: np.ndarr
 def _levels(problem: PlanningProblem, t: int, visit: np.ndarray, load: np.ndarray) -> np.ndarray:
     """Loads as bundle counts (−1 without a visit), the pool's representation."""
     return np.where(visit, np.rint(np.nan_to_num(load) / problem.bundle[t]), -1).astype(int)
-
-
-def _name(solver: str) -> str:
-    if solver == "highs" and milp.highs_available():
-        return ("HiGHS (highspy; master through PuLP); top-up by enumeration, exact pricing or "
-                "order-up-to")
-    return "CBC (through PuLP); top-up by enumeration, exact pricing or order-up-to"
