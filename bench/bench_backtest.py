@@ -8,7 +8,7 @@ Run from the repo root::
 (``--set`` changes the scenario as a what-if override does, e.g. to see how much of the gap to
 the bound the service target explains: ``--set service.max_dry_probability=0.1``.)
 
-Replays the last ``--weeks`` weeks of the history (:func:`planner.evaluate.backtest_scenario`)
+Replays the last ``--weeks`` weeks of the history (:func:`planner.evaluate.replay_scenario`)
 with the planner, the planner on seasonal naive paths, and the baseline routines (fixed
 weekdays Mon/Thu filled to the limit; days of cover 3/7 days + 25 %), all priced by the one
 accounting on the realised demand, and prints the figures measured in this one run against the
@@ -33,7 +33,7 @@ from pathlib import Path
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
-from planner.evaluate.backtest import backtest_scenario, write_backtest  # noqa: E402
+from planner.evaluate.replay import backtest_scenario, write_backtest  # noqa: E402
 from planner.pipeline import PlanOptions  # noqa: E402
 from planner.scenario import load_scenario  # noqa: E402
 

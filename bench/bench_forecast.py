@@ -134,7 +134,7 @@ def calibrated_coverage(scenario, clean, result) -> None:
 
     from planner.calendar import FEATURE_COLUMNS, calendar_features
     from planner.forecast import candidate_models
-    from planner.forecast.backtest import (BACKTEST_LEVELS, backtest_model, fit_network_spread,
+    from planner.forecast.scoring import (BACKTEST_LEVELS, backtest_model, fit_network_spread,
                                            origin_days, spread_by_day, widen)
 
     levels = list(BACKTEST_LEVELS)

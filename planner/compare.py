@@ -650,7 +650,7 @@ def write_compare(writer, result: CompareResult, *, prefix: str = "compare") -> 
     """Write the comparison into a run folder (:class:`planner.runfolder.RunFolderWriter`):
     ``<prefix>.csv`` (variant table), ``<prefix>_terminals.csv``, ``<prefix>.json`` and
     ``<prefix>.png`` (chart of the deltas with their intervals)."""
-    from planner.evaluate.charts import compare_chart
+    from planner.report.cost_charts import compare_chart
 
     def rounded(frame: pd.DataFrame) -> pd.DataFrame:
         out = frame.copy()

@@ -277,7 +277,7 @@ def _plan_scenario(source: str | Path | Scenario, options: PlanOptions, progress
         progress("diagnose", 1, 1)
     backtest = comparison = None
     if options.backtest_weeks > 0:
-        from planner.evaluate.backtest import backtest_scenario
+        from planner.evaluate.replay import backtest_scenario
 
         progress("backtest", 0, options.backtest_weeks)
         week = iter(range(1, options.backtest_weeks + 1))
@@ -395,7 +395,7 @@ def run_plan(source: str | Path | Scenario, out_dir: str | Path, *,
             writer.write_csv("out_of_sample.csv", _rounded(run.out_of_sample.frame))
             writer.write_csv("routines.csv", _rounded(run.evaluation))
         if run.backtest is not None:
-            from planner.evaluate.backtest import write_backtest
+            from planner.evaluate.replay import write_backtest
 
             write_backtest(writer, run.backtest)
         if run.comparison is not None:
@@ -664,7 +664,7 @@ def run_backtest(source: str | Path | Scenario, out_dir: str | Path, *, weeks: i
                  progress: Any = None) -> Any:
     """Replay the last ``weeks`` weeks (planner, baseline routines, perfect-foresight bound)
     and write the backtest tables and chart to a run folder."""
-    from planner.evaluate.backtest import backtest_scenario, write_backtest
+    from planner.evaluate.replay import backtest_scenario, write_backtest
     from planner.evaluate.baselines import read_past_visits
 
     with open_run_folder(out_dir, source) as writer:

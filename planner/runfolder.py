@@ -194,6 +194,8 @@ def write_private_file(path: Path, data: bytes) -> None:
     try:
         with os.fdopen(fd, "wb") as fh:
             fh.write(data)
+            fh.flush()
+            os.fsync(fh.fileno())
         os.chmod(tmp, FILE_MODE)
         os.replace(tmp, path)
     except BaseException:

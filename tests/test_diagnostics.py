@@ -19,7 +19,6 @@ from planner.diagnostics import (
     TREND_STATIONARY,
     UNIT_ROOT,
     Diagnostics,
-    _write_private,
     correlogram,
     describe,
     diagnose_scenario,
@@ -358,12 +357,3 @@ def test_diagnose_scenario_without_output() -> None:
     assert list(results) == ["BRH-001", "BRH-002", "BRH-003"]
     table = results["BRH-003"].table()
     assert table["p_value"].dropna().between(0, 1).all()
-
-
-def test_private_write_replaces_whole_file(tmp_path) -> None:
-    target = tmp_path / "a" / "x.csv"
-    _write_private(target, b"one")
-    _write_private(target, b"two")
-    assert target.read_bytes() == b"two"
-    assert stat.S_IMODE(os.stat(target).st_mode) == 0o600
-    assert [p.name for p in target.parent.iterdir()] == ["x.csv"]

@@ -17,7 +17,7 @@ from scipy import special
 
 from planner.forecast.models import (LEVELS, HoltWinters, LocalLevel, ModelFitError,
                                      RegressionARIMA, SeasonalNaive, hw_errors)
-from planner.forecast.network import NetworkProfile
+from planner.forecast.profile import NetworkProfile
 
 WEEKDAY_LOG = np.log([0.9, 0.9, 1.0, 1.1, 1.4, 1.5, 0.5])
 

@@ -7,7 +7,7 @@ import pytest
 from scipy import stats
 
 from planner.demo import demo_path
-from planner.forecast.backtest import (BACKTEST_LEVELS, ModelBacktest, fit_network_spread,
+from planner.forecast.scoring import (BACKTEST_LEVELS, ModelBacktest, fit_network_spread,
                                        spread_by_day, widen)
 
 

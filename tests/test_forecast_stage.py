@@ -12,7 +12,7 @@ from planner.cleaning import clean_history
 from planner.errors import InputError
 from planner.executor import LocalExecutor
 from planner.forecast import ForecastResult, NetworkProfile, forecast_scenario
-from planner.forecast.network import network_profile
+from planner.forecast.profile import network_profile
 from planner.scenario import load_scenario
 
 TINY = Path(__file__).resolve().parents[1] / "planner" / "demo" / "tiny"

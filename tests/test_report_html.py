@@ -318,7 +318,7 @@ def test_same_run_gives_the_same_report(small):
 
 def test_backtest_and_what_if_results_of_their_stages(small):
     """The results of the backtest and of the what-if comparison are shown as they come
-    (frames built here with the columns documented in planner.evaluate.backtest and
+    (frames built here with the columns documented in planner.evaluate.replay and
     planner.compare; the backtest result is read by its fields, so a stand-in with those
     fields serves)."""
     from dataclasses import dataclass, field

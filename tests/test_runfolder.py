@@ -170,3 +170,12 @@ def test_a_second_run_to_the_same_folder_fails_at_once_and_spares_the_first(tmp_
     with RunFolderWriter(target) as w:                # the lock is free again
         w.write_text("plan.csv", "second\n")
     assert (target / "plan.csv").read_text() == "second\n"
+
+
+def test_private_write_replaces_whole_file(tmp_path) -> None:
+    target = tmp_path / "a" / "x.csv"
+    write_private_file(target, b"one")
+    write_private_file(target, b"two")
+    assert target.read_bytes() == b"two"
+    assert stat.S_IMODE(os.stat(target).st_mode) == 0o600
+    assert [p.name for p in target.parent.iterdir()] == ["x.csv"]

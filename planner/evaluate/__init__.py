@@ -4,7 +4,7 @@
 - :mod:`planner.evaluate.baselines` — baseline routines (fixed weekdays, days of cover, past
   visits) as ``(problem) -> (visits, loads)``.
 - :mod:`planner.evaluate.bound` — the perfect-foresight bound (Wagner–Whitin style programme).
-- :mod:`planner.evaluate.backtest` — rolling backtest of the planner and the baselines on the
+- :mod:`planner.evaluate.replay` — rolling backtest of the planner and the baselines on the
   recorded history.
 """
 from __future__ import annotations
@@ -22,9 +22,9 @@ __all__ = ["OutOfSampleCheck", "check_plan", "fresh_seed", "out_of_sample_check"
 
 
 def __getattr__(name: str):
-    # the backtest pulls in the forecast and the solver; load it on first use only
+    # the replay pulls in the forecast and the solver; load it on first use only
     if name in ("BacktestResult", "backtest_scenario", "write_backtest"):
-        from planner.evaluate import backtest
+        from planner.evaluate import replay
 
-        return getattr(backtest, name)
+        return getattr(replay, name)
     raise AttributeError(f"module 'planner.evaluate' has no attribute {name!r}")

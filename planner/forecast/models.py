@@ -4,7 +4,7 @@ Models only see arrays: ``y`` is daily demand of one terminal on the original sc
 units, ≥ 0, no NaN, one value per consecutive day) and ``exog`` an ``[n, k]`` matrix of calendar
 regressors for the same days (columns as :func:`planner.calendar.calendar_features`, in a fixed
 order; ``None`` when there are none). Looping over terminals, fallbacks, backtest windows and
-processes lives elsewhere (:mod:`planner.forecast.backtest`, :mod:`planner.forecast.stage`).
+processes lives elsewhere (:mod:`planner.forecast.scoring`, :mod:`planner.forecast.stage`).
 
 The interface, in the manner of scikit-learn (the constructor only stores keyword-only
 parameters; learned attributes end in ``_``):

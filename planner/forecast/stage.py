@@ -4,14 +4,14 @@ For each terminal (on the run's executor, :mod:`planner.executor`, in chunks of 
 
 1. its cleaned daily demand (``CleanHistory.daily["demand"]``; dry days are already estimated
    there) and the calendar features of its days;
-2. a rolling-origin backtest of every candidate (:mod:`planner.forecast.backtest`); a model
+2. a rolling-origin backtest of every candidate (:mod:`planner.forecast.scoring`); a model
    that cannot be fitted is left out, with the reason in ``fallbacks``;
 3. the champion — lowest mean scaled pinball loss — is refitted on the whole history (on
    failure the next best takes its place, again recorded);
 4. its quantiles and ``path_count`` joint demand paths over the forecast days.
 
 Terminals without history are forecast from the network-average weekday profile scaled to the
-median level (:mod:`planner.forecast.network`); terminals with too little history for any model
+median level (:mod:`planner.forecast.profile`); terminals with too little history for any model
 from the same profile scaled to their own mean. Both are named in ``fallbacks``.
 
 When a terminal's history ends before the day before the first planning day, the forecast
@@ -38,10 +38,10 @@ import pandas as pd
 from planner.calendar import FEATURE_COLUMNS, calendar_features
 from planner.errors import InputError, Problem
 from planner.executor import Executor, LocalExecutor
-from planner.forecast.backtest import (backtest_model, champion_reason, fit_network_spread,
+from planner.forecast.scoring import (backtest_model, champion_reason, fit_network_spread,
                                        origin_days, rank_models, spread_by_day, widen)
 from planner.forecast.models import LEVELS, MODELS, DemandModel, ModelFitError
-from planner.forecast.network import NetworkProfile, network_profile
+from planner.forecast.profile import NetworkProfile, network_profile
 from planner.forecast.paths import simulate_paths, terminal_seeds
 
 DEFAULT_MODELS = ("regression_arima", "holt_winters", "seasonal_naive")
@@ -70,7 +70,7 @@ class FittedTerminal:
              extra_exog: np.ndarray | None = None) -> np.ndarray:
         """Demand paths ``[count, days]`` from the first forecast day, drawn from ``seed``
         and spread by the calibrated factors around the model's median
-        (:func:`~planner.forecast.backtest.widen`); ``extra_exog`` holds the calendar
+        (:func:`~planner.forecast.scoring.widen`); ``extra_exog`` holds the calendar
         features of the days beyond the stage's last day when ``days`` asks for more."""
         h = self.gap + int(days)
         fut = self.exog_future
@@ -327,7 +327,7 @@ def task_chunks(tasks: list, workers: int, per_worker: int = 4) -> list[list]:
 
 def calibrated(result: TerminalForecast, factors: np.ndarray) -> TerminalForecast:
     """One terminal's quantiles and paths spread by the network's calibrated factors
-    (:func:`~planner.forecast.backtest.fit_network_spread`), around the champion's median;
+    (:func:`~planner.forecast.scoring.fit_network_spread`), around the champion's median;
     its fitted champion keeps the factors for later draws."""
     gap, keep = result.fitted.gap, result.paths.shape[1]
     by_day = spread_by_day(factors, gap + keep)[:, gap:]

@@ -257,7 +257,7 @@ def _headline(obj: Any) -> str:
 
 def as_backtest(obj: Any) -> TablesView | None:
     """Read a backtest result (see the module doc); a
-    :class:`planner.evaluate.backtest.BacktestResult` shows its policy table, the cumulative
+    :class:`planner.evaluate.replay.BacktestResult` shows its policy table, the cumulative
     cost per policy over the window and its headline."""
     if obj is None:
         return None

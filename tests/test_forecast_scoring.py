@@ -1,10 +1,10 @@
-"""Tests of the rolling-origin backtest and the champion choice (planner.forecast.backtest)."""
+"""Tests of the rolling-origin backtest and the champion choice (planner.forecast.scoring)."""
 from __future__ import annotations
 
 import numpy as np
 import pytest
 
-from planner.forecast.backtest import (BACKTEST_LEVELS, accuracy, backtest_model,
+from planner.forecast.scoring import (BACKTEST_LEVELS, accuracy, backtest_model,
                                        champion_reason, mase_scale, origin_days, pinball,
                                        rank_models)
 from planner.forecast.models import HoltWinters, RegressionARIMA, SeasonalNaive

@@ -516,7 +516,7 @@ def write_backtest(writer, result: BacktestResult, *, prefix: str = "backtest") 
     """Write the backtest into a run folder (:class:`planner.runfolder.RunFolderWriter`):
     ``<prefix>.csv`` (policy table), ``<prefix>_daily.csv``, ``<prefix>_terminals.csv``,
     ``<prefix>.json`` (summary) and ``<prefix>.png`` (chart)."""
-    from planner.evaluate.charts import backtest_chart
+    from planner.report.cost_charts import backtest_chart
 
     writer.write_csv(f"{prefix}.csv", _rounded(result.table))
     writer.write_csv(f"{prefix}_daily.csv", _rounded(result.daily))

@@ -11,7 +11,7 @@ import pytest
 
 from planner.runfolder import MARKER
 from planner.costs import CostRates
-from planner.evaluate.backtest import execute_days, realised_demand
+from planner.evaluate.replay import execute_days, realised_demand
 
 TINY = Path(__file__).resolve().parents[1] / "planner" / "demo" / "tiny"
 RATES = CostRates(carry_rate_daily=0.01, handling_per_1000=1.0, dry_day_penalty=100.0)
@@ -75,7 +75,7 @@ def test_realised_demand_uses_the_cleaned_estimate_on_censored_days():
 
 @pytest.fixture(scope="module")
 def short_backtest():
-    from planner.evaluate.backtest import backtest_scenario
+    from planner.evaluate.replay import backtest_scenario
     from planner.pipeline import PlanOptions
     from planner.scenario import load_scenario
 
@@ -136,7 +136,7 @@ def test_no_policy_beats_the_perfect_foresight_bound(short_backtest):
 
 
 def test_backtest_run_folder_files(short_backtest, tmp_path):
-    from planner.evaluate.backtest import write_backtest
+    from planner.evaluate.replay import write_backtest
     from planner.runfolder import RunFolderWriter
 
     _, result = short_backtest
@@ -153,7 +153,7 @@ def test_backtest_run_folder_files(short_backtest, tmp_path):
 
 def test_a_window_longer_than_the_history_is_an_input_error():
     from planner.errors import InputError
-    from planner.evaluate.backtest import backtest_scenario
+    from planner.evaluate.replay import backtest_scenario
     from planner.scenario import load_scenario
 
     with pytest.raises(InputError, match="at least 8 weeks of history"):
@@ -168,7 +168,7 @@ def test_compact_table_keeps_one_row_per_policy(short_backtest):
 
 
 def test_headline_counts_read_as_words():
-    from planner.evaluate.backtest import _count
+    from planner.evaluate.replay import _count
 
     assert _count(1, "dry day") == "1 dry day"
     assert _count(0, "dry day") == "0 dry days"
