@@ -43,7 +43,7 @@ BOUND_RATIO_TARGET = 1.3
 
 def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    parser.add_argument("scenario", nargs="?", default=str(ROOT / "planner/demo/northvale"))
+    parser.add_argument("scenario", nargs="?", default=str(ROOT / "scenarios/northvale"))
     parser.add_argument("--weeks", type=int, default=12)
     parser.add_argument("--paths", type=int, default=None,
                         help="demand paths per plan [default: the scenario's paths.count]")

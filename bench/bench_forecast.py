@@ -55,9 +55,9 @@ def _es_fits(series: list[np.ndarray]) -> float:
 def main() -> None:
     parser = argparse.ArgumentParser()
     parser.add_argument("scenario", nargs="*",
-                        default=[str(ROOT / "planner/demo/northvale"),
-                                 str(ROOT / "planner/demo/holdout/saltreach"),
-                                 str(ROOT / "planner/demo/holdout/brannock")])
+                        default=[str(ROOT / "scenarios/northvale"),
+                                 str(ROOT / "scenarios/holdout/saltreach"),
+                                 str(ROOT / "scenarios/holdout/brannock")])
     parser.add_argument("--repeat", type=int, default=3)
     args = parser.parse_args()
     for folder in args.scenario:

@@ -46,11 +46,12 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
+from planner.costs import MODES
 from planner.errors import InputError, Problem
 from planner.executor import Executor
+from planner.runfolder import rounded
+from planner.scenario import WEEKDAYS
 
-WEEKDAYS = ("Mon", "Tue", "Wed", "Thu", "Fri", "Sat", "Sun")
-MODES = ("swap", "topup")
 COST_KEYS = ("carry_rate_annual", "visit_fee", "emergency_visit_fee", "handling_per_1000",
              "dry_day_penalty", "shortfall_penalty_per_1000")
 TERMINAL_COLUMNS = ("capacity", "insurance_limit", "bundle", "balance_now", "visit_days",
@@ -651,14 +652,6 @@ def write_compare(writer, result: CompareResult, *, prefix: str = "compare") -> 
     ``<prefix>.csv`` (variant table), ``<prefix>_terminals.csv``, ``<prefix>.json`` and
     ``<prefix>.png`` (chart of the deltas with their intervals)."""
     from planner.report.cost_charts import compare_chart
-
-    def rounded(frame: pd.DataFrame) -> pd.DataFrame:
-        out = frame.copy()
-        for col in out.columns:
-            if out[col].dtype.kind == "f":
-                out[col] = out[col].round(4 if "probability" in col or "share" in col
-                                          or col == "gap" else 2)
-        return out
 
     writer.write_csv(f"{prefix}.csv", rounded(result.table))
     writer.write_csv(f"{prefix}_terminals.csv", rounded(result.terminals))

@@ -16,6 +16,7 @@ import pandas as pd
 from planner import __version__
 from planner.executor import Executor
 from planner.options import PlanOptions, check_memory, run_executor
+from planner.runfolder import rounded
 from planner.scenario import Scenario, load_scenario
 
 @dataclass(frozen=True)
@@ -314,6 +315,7 @@ def evaluate_plan(scenario: Scenario, clean: Any, problem: Any, result: Any,
     ``terminals_over_target``, ``visits`` in the horizon) and the out-of-sample check.
     """
     from planner.evaluate import days_of_cover, fixed_weekdays, out_of_sample_check, plan_ledger
+    from planner.evaluate.baselines import ROUTINE_LABELS
     from planner.evaluate.bound import perfect_foresight_arrays
     from planner.costs import cycle_dry_shares
     from planner.evaluate.simulate import over_target
@@ -325,10 +327,8 @@ def evaluate_plan(scenario: Scenario, clean: Any, problem: Any, result: Any,
     target = problem.max_dry_probability
     rows = []
     routines = [("planner", "plan", (result.visits, result.loads)),
-                ("fixed weekdays Mon+Thu, filled to the limit", "baseline",
-                 fixed_weekdays(problem)),
-                ("days of cover (3-day trigger, 7 days + 25 %)", "baseline",
-                 days_of_cover(problem))]
+                (ROUTINE_LABELS["fixed_weekdays"], "baseline", fixed_weekdays(problem)),
+                (ROUTINE_LABELS["days_of_cover"], "baseline", days_of_cover(problem))]
     for name, kind, (visits, loads) in routines:
         ledger = plan_ledger(problem, visits, loads, fresh)
         parts = ledger.parts()
@@ -383,17 +383,17 @@ def run_plan(source: str | Path | Scenario, out_dir: str | Path, *,
     """Plan a scenario and write its run folder atomically (owner-only permissions)."""
     with open_run_folder(out_dir, source) as writer:
         run = plan_scenario(source, options=options, progress=progress)
-        writer.write_csv("plan.csv", _rounded(run.plan))
-        writer.write_csv("orders.csv", _rounded(run.orders))
-        writer.write_csv("costs.csv", _rounded(run.costs))
+        writer.write_csv("plan.csv", rounded(run.plan))
+        writer.write_csv("orders.csv", rounded(run.orders))
+        writer.write_csv("costs.csv", rounded(run.costs))
         if run.diagnostics:
             tables = [d.table().assign(terminal_id=tid)[["terminal_id", "on", "test", "statistic",
                                                          "p_value", "verdict"]]
                       for tid, d in run.diagnostics.items()]
-            writer.write_csv("diagnostics.csv", _rounded(pd.concat(tables, ignore_index=True)))
+            writer.write_csv("diagnostics.csv", rounded(pd.concat(tables, ignore_index=True)))
         if run.out_of_sample is not None:
-            writer.write_csv("out_of_sample.csv", _rounded(run.out_of_sample.frame))
-            writer.write_csv("routines.csv", _rounded(run.evaluation))
+            writer.write_csv("out_of_sample.csv", rounded(run.out_of_sample.frame))
+            writer.write_csv("routines.csv", rounded(run.evaluation))
         if run.backtest is not None:
             from planner.evaluate.replay import write_backtest
 
@@ -411,17 +411,6 @@ def run_plan(source: str | Path | Scenario, out_dir: str | Path, *,
             write_plan_xlsx(run, writer)
             (progress or _quiet)("report", 1, 1)
     return replace(run, run_folder=Path(out_dir))
-
-
-def _rounded(frame: pd.DataFrame) -> pd.DataFrame:
-    """Round floats for stable, readable CSV (cents for money, 4 places for probabilities)."""
-    out = frame.copy()
-    for col in out.columns:
-        if out[col].dtype.kind == "f":
-            out[col] = out[col].round(4 if "probability" in col else 2)
-        elif out[col].dtype.kind == "M":
-            out[col] = out[col].dt.strftime("%Y-%m-%d")
-    return out
 
 
 def _versions() -> dict[str, str]:
@@ -584,10 +573,10 @@ def run_forecast(source: str | Path | Scenario, out_dir: str | Path, *,
     """Forecast and write accuracy, champions and forecast quantiles to a run folder."""
     with open_run_folder(out_dir, source) as writer:
         run = forecast_only(source, options=options)
-        writer.write_csv("accuracy_by_model.csv", _rounded(run.by_model))
-        writer.write_csv("accuracy.csv", _rounded(run.forecast.accuracy))
-        writer.write_csv("champions.csv", _rounded(run.champions))
-        writer.write_csv("forecasts.csv", _rounded(run.forecast.quantiles))
+        writer.write_csv("accuracy_by_model.csv", rounded(run.by_model))
+        writer.write_csv("accuracy.csv", rounded(run.forecast.accuracy))
+        writer.write_csv("champions.csv", rounded(run.champions))
+        writer.write_csv("forecasts.csv", rounded(run.forecast.quantiles))
         writer.write_json("summary.json", {
             "scenario": run.scenario.name, "input_fingerprint": run.scenario.fingerprint,
             "paths": {"count": run.scenario.path_count, "seed": run.scenario.seed},

@@ -186,6 +186,20 @@ class RunFolderWriter:
                 raise
 
 
+def rounded(frame: pd.DataFrame) -> pd.DataFrame:
+    """A table as the run folder writes it: floats to cents (2 places), shares, probabilities,
+    ratios, savings and gaps to 4 places; dates as YYYY-MM-DD."""
+    out = frame.copy()
+    for col in out.columns:
+        fine = any(word in str(col) for word in ("probability", "share", "ratio", "saving")) \
+            or col == "gap"
+        if out[col].dtype.kind == "f":
+            out[col] = out[col].round(4 if fine else 2)
+        elif out[col].dtype.kind == "M":
+            out[col] = out[col].dt.strftime("%Y-%m-%d")
+    return out
+
+
 def write_private_file(path: Path, data: bytes) -> None:
     """Write one file atomically (temp file + rename) with owner-only permissions."""
     path = Path(path)

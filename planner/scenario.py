@@ -34,11 +34,11 @@ from typing import Any, Callable
 import numpy as np
 import pandas as pd
 
+from planner.costs import MODES  # noqa: F401 - the modes a scenario may name
 from planner.errors import InputError, Problem
 
 WEEKDAYS = ("Mon", "Tue", "Wed", "Thu", "Fri", "Sat", "Sun")
 STATUSES = ("ok", "dry", "down")
-MODES = ("swap", "topup")
 
 SETTINGS_FILE = "scenario.toml"
 MIN_HISTORY_DAYS = 56  # 8 weeks: fewer weekly cycles make weekday profiles unreliable

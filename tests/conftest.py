@@ -7,7 +7,7 @@ from typing import Callable
 
 import pytest
 
-TINY = Path(__file__).resolve().parents[1] / "planner" / "demo" / "tiny"
+TINY = Path(__file__).resolve().parents[1] / "scenarios" / "tiny"
 
 # An edit receives the file's text ("" if the file does not exist) and returns the new content:
 # text (written as UTF-8), bytes (written as they are) or None (the file is deleted).
@@ -30,7 +30,7 @@ def rewrite(folder: Path, name: str, edit: Edit) -> Path:
 
 @pytest.fixture
 def tiny_dir(tmp_path: Path) -> Path:
-    """A copy of ``planner/demo/tiny`` in the test's own temporary folder."""
+    """A copy of ``scenarios/tiny`` in the test's own temporary folder."""
     return Path(shutil.copytree(TINY, tmp_path / "tiny"))
 
 

@@ -11,7 +11,7 @@ from planner.cli import app
 
 runner = CliRunner()
 COMMANDS = ["check", "plan", "forecast", "diagnose", "backtest", "compare"]
-TINY = __import__("pathlib").Path(__file__).resolve().parents[1] / "planner" / "demo" / "tiny"
+TINY = __import__("pathlib").Path(__file__).resolve().parents[1] / "scenarios" / "tiny"
 
 
 def _plain(text: str) -> str:
@@ -188,3 +188,18 @@ def test_check_echoes_what_it_understood_and_warns_of_crewless_commitments(tiny_
                    "committed visits 1", "BRH-001 is committed on Tue 2026-12-01, a day depot "
                    "Brenholm has no crew"):
         assert phrase in text, phrase
+
+
+@pytest.mark.parametrize("args, fragment", [
+    (["--executor", "dask", "--scheduler", "tcp://10.20.30.40:8786"], "unencrypted"),
+    (["--scheduler", "tls://10.20.30.40:8786"], "without --executor dask"),
+    (["--executor", "cloud"], "unknown executor"),
+    (["--executor", "dask", "--scheduler", "10.20.30.40"], "not a scheduler address"),
+])
+def test_cluster_settings_that_are_refused_before_any_work(tmp_path, args, fragment):
+    """Plans and histories never go unencrypted to another machine by accident; every refusal
+    is bad input (exit 2) with the fix, and nothing is written."""
+    result = runner.invoke(app, ["plan", str(TINY), "--out", str(tmp_path / "run"), *args])
+    assert result.exit_code == 2, result.output
+    assert fragment in _plain(result.output)
+    assert not (tmp_path / "run").exists()

@@ -15,7 +15,7 @@ from planner.compare import (apply_overrides, parse_override, parse_variants,
 from planner.errors import InputError
 from planner.scenario import load_scenario
 
-TINY = Path(__file__).resolve().parents[1] / "planner" / "demo" / "tiny"
+TINY = Path(__file__).resolve().parents[1] / "scenarios" / "tiny"
 
 
 @pytest.fixture(scope="module")

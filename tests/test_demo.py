@@ -1,6 +1,7 @@
-"""Tests of the Northvale demo scenario (planner/demo/make_demo.py and planner/demo/northvale)."""
+"""Tests of the Northvale demo scenario (scenarios/make_demo.py and scenarios/northvale)."""
 from __future__ import annotations
 
+import os
 import re
 from pathlib import Path
 
@@ -257,3 +258,32 @@ def test_development_network_keeps_an_undeclared_payday_in_its_truth(tmp_path):
     assert hidden == ["last_business_day"]
     assert list(scenario.calendar.paydays) == [10]
     assert "declared=False" in (folder / "truth" / "settings.txt").read_text()
+
+
+def test_installed_package_finds_its_bundled_scenarios(tmp_path):
+    """``pip install .`` puts scenarios/ inside the package (as planner.demo): from a folder
+    outside the repository, the installed command checks and plans the bundled networks."""
+    import subprocess
+    import sys
+
+    root = Path(__file__).resolve().parents[1]
+    target = tmp_path / "site"
+    subprocess.run([sys.executable, "-m", "pip", "install", "--quiet", "--no-deps",
+                    "--target", str(target), str(root)], check=True, capture_output=True)
+    assert (target / "planner" / "demo" / "northvale" / "dispense.csv").is_file()
+    assert (target / "planner" / "demo" / "holdout" / "brannock" / "scenario.toml").is_file()
+    away = tmp_path / "elsewhere"
+    away.mkdir()
+    env = {**os.environ, "PYTHONPATH": str(target), "OPENBLAS_NUM_THREADS": "1"}
+    checked = subprocess.run([sys.executable, "-m", "planner", "check"], cwd=away, env=env,
+                             capture_output=True, text=True)
+    assert checked.returncode == 0, checked.stderr
+    assert "Scenario is valid" in checked.stdout
+    tiny = subprocess.run([sys.executable, "-c", "from planner.demo import demo_path; "
+                           "print(demo_path('tiny'))"], cwd=away, env=env,
+                          capture_output=True, text=True, check=True).stdout.strip()
+    assert Path(tiny).is_relative_to(target)
+    planned = subprocess.run([sys.executable, "-m", "planner", "plan", tiny, "--out", "run",
+                              "--quiet"], cwd=away, env=env, capture_output=True, text=True)
+    assert planned.returncode == 0, planned.stderr
+    assert (away / "run" / "plan.csv").is_file()

@@ -13,7 +13,7 @@ from planner.runfolder import MARKER
 from planner.costs import CostRates
 from planner.evaluate.replay import execute_days, realised_demand
 
-TINY = Path(__file__).resolve().parents[1] / "planner" / "demo" / "tiny"
+TINY = Path(__file__).resolve().parents[1] / "scenarios" / "tiny"
 RATES = CostRates(carry_rate_daily=0.01, handling_per_1000=1.0, dry_day_penalty=100.0)
 
 

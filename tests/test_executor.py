@@ -136,3 +136,26 @@ def test_cluster_settings_that_are_accepted_without_connecting():
 def test_unknown_engine_is_an_input_error():
     with pytest.raises(InputError, match="unknown executor"):
         make_executor("spark")
+
+
+def test_a_plan_on_a_dask_cluster_equals_the_plan_in_this_process(tiny_dir):
+    """The whole run on a 2-worker local cluster: the forecast per terminal and the schedule
+    per depot give the same plan, byte for byte, as in this process."""
+    from planner.optimize.schedule import solve_plan
+    from planner.optimize.synthetic import synthetic_problem
+    from planner.pipeline import plan_scenario
+
+    problem = synthetic_problem(terminals=60, depots=3, horizon_days=7, tail_days=7, paths=40,
+                                seed=3, crew_share=0.4, mode="swap")
+    here = solve_plan(problem, time_limit_s=60)
+    quick = dict(evaluate=False, diagnose=False, calibrate=False, path_count=60)
+    alone = plan_scenario(tiny_dir, **quick)
+    with make_executor("dask", workers=2) as cluster:
+        there = solve_plan(problem, time_limit_s=60, executor=cluster)
+        assert any(line.startswith("network: 3 depot(s) on 2 worker(s)") for line in there.log)
+        spread = plan_scenario(tiny_dir, executor=cluster, **quick)
+    assert np.array_equal(here.visits, there.visits)
+    assert np.array_equal(here.loads, there.loads)
+    assert here.objective == there.objective
+    assert alone.plan.to_csv() == spread.plan.to_csv()
+    assert np.array_equal(alone.forecast.paths, spread.forecast.paths)

@@ -10,7 +10,7 @@ import pytest
 import planner.forecast.stage as stage
 from planner.scenario import load_scenario
 
-TINY = Path(__file__).resolve().parents[1] / "planner" / "demo" / "tiny"
+TINY = Path(__file__).resolve().parents[1] / "scenarios" / "tiny"
 
 
 @pytest.fixture

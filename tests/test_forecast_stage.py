@@ -15,7 +15,7 @@ from planner.forecast import ForecastResult, NetworkProfile, forecast_scenario
 from planner.forecast.profile import network_profile
 from planner.scenario import load_scenario
 
-TINY = Path(__file__).resolve().parents[1] / "planner" / "demo" / "tiny"
+TINY = Path(__file__).resolve().parents[1] / "scenarios" / "tiny"
 
 
 @pytest.fixture(scope="module")

@@ -371,16 +371,16 @@ def test_baumol_square_root_load():
     visit_days = np.flatnonzero(result.visits[0])
     cycles = np.diff(np.append(visit_days, days))
     loads = result.loads[0, visit_days]
-    # Tolerance: the plan works in whole days, so a cycle is floor or ceil of cycle* (the
-    # discrete cost F/k + r·d·(k − 1)/2 per day is convex in k with the continuous minimiser
-    # cycle*); a load is then a whole number of days of demand (a multiple of the 1,000 bundle
-    # here), so within one day's demand d of load*. Cycles cut short by the horizon end
-    # are not Baumol cycles: only whole interior cycles are checked.
-    assert set(cycles[:-1]) <= {math.floor(cycle_star), math.ceil(cycle_star)}
-    assert np.all(np.abs(loads[:-1] - load_star) <= d)
-    assert np.all(loads == cycles * d)          # exactly the demand of the cycle, no dry day
-    assert result.objective == pytest.approx(len(visit_days) * fee
-                                             + r * d * sum(k * (k - 1) / 2 for k in cycles))
+    # The plan works in whole days: the cost of one cycle of k days is F + r·d·k(k − 1)/2
+    # (carry on the nights' balances), convex in k, so with 60 days the optimum is 12 equal
+    # cycles of 5 days (cycle* = 4.90): 12 × (120 + 10 · 10) = 2,640. Cycles of 4 days would
+    # cost 15 × (120 + 10 · 6) = 2,700 and of 6 days 10 × (120 + 10 · 15) = 2,700.
+    assert round(cycle_star) == 5
+    assert list(cycles) == [5] * 12
+    assert list(loads) == [5 * d] * 12              # exactly the cycle's demand, no dry day
+    assert abs(loads[0] - load_star) <= d          # the square-root load in whole days
+    assert result.objective == pytest.approx(2_640.0)
+    assert 2_640.0 < 15 * (fee + r * d * 6) and 2_640.0 < 10 * (fee + r * d * 15)
 
 
 # --------------------------------------------------------------------------------------------

@@ -7,7 +7,6 @@ import signal
 import stat
 import subprocess
 import sys
-import time
 from pathlib import Path
 
 import numpy as np
@@ -22,7 +21,7 @@ from planner.pipeline import PlanOptions, run_plan
 from planner.scenario import WEEKDAYS, load_scenario
 
 REPO = Path(__file__).resolve().parents[1]
-TINY = REPO / "planner" / "demo" / "tiny"
+TINY = REPO / "scenarios" / "tiny"
 FAST = PlanOptions(path_count=120, origins=2)
 RUN_FILES = {"plan.csv", "orders.csv", "costs.csv", "summary.json", "out_of_sample.csv",
              "routines.csv", "diagnostics.csv", "report.html", "plan.xlsx", MARKER}
@@ -110,19 +109,39 @@ def test_cli_plan_json(tmp_path):
     assert json.loads(result.output)["scenario"].startswith("Kestrel Valley Bank")
 
 
+# The plan command with the run folder's commit held until the test lets go: every file is
+# staged, nothing is published yet (a handshake on the pipes instead of polling with sleeps).
+HELD_PLAN = """
+import sys
+from planner import runfolder
+from planner.cli import app
+
+commit = runfolder.RunFolderWriter.commit
+
+
+def held(self):
+    print("staged", flush=True)
+    sys.stdin.readline()
+    return commit(self)
+
+
+runfolder.RunFolderWriter.commit = held
+app(sys.argv[1:])
+"""
+
+
 def test_kill_during_plan_leaves_no_half_written_run_folder(tmp_path):
     out = tmp_path / "killed"
     env = {**os.environ, "PYTHONPATH": str(REPO)}
-    proc = subprocess.Popen([sys.executable, "-m", "planner", "plan", str(TINY), "--out",
-                             str(out), "--paths", "200", "--quiet"], cwd=tmp_path, env=env)
-    deadline = time.monotonic() + 120
-    # wait until the run folder is being written, then kill the process
-    while not list(tmp_path.glob(".killed.partial-*/*")):
-        assert proc.poll() is None, "plan finished before it could be interrupted"
-        assert time.monotonic() < deadline
-        time.sleep(0.002)
-    os.kill(proc.pid, signal.SIGKILL)
-    proc.wait()
+    proc = subprocess.Popen([sys.executable, "-c", HELD_PLAN, "plan", str(TINY), "--out",
+                             str(out), "--paths", "200", "--quiet"], cwd=tmp_path, env=env,
+                            stdin=subprocess.PIPE, stdout=subprocess.PIPE, text=True)
+    try:
+        assert proc.stdout.readline().strip() == "staged"
+        assert list(tmp_path.glob(".killed.partial-*/plan.csv"))
+    finally:
+        os.kill(proc.pid, signal.SIGKILL)
+        proc.wait()
     assert not out.exists()
 
 

@@ -334,7 +334,8 @@ def test_backtest_and_what_if_results_of_their_stages(small):
 
     dates = pd.date_range("2026-10-05", periods=14, freq="D")
     policies = {"planner": "planner (champion forecast)", "fixed_weekdays":
-                "fixed weekdays, fill to limit", "days_of_cover": "days of cover"}
+                "fixed weekdays Mon+Thu, filled to the limit",
+                "days_of_cover": "days of cover (3-day trigger, 7 days + 25 %)"}
     table = pd.DataFrame({"policy": [*policies, "perfect_foresight"],
                           "label": [*policies.values(), "perfect-foresight bound"],
                           "total": [900.0, 1200.0, 1000.0, 700.0],
@@ -361,7 +362,7 @@ def test_backtest_and_what_if_results_of_their_stages(small):
     b0 = text.index("<section id='backtest'>")
     bt = text[b0:text.index("</section>", b0)]
     assert "Backtest over 2 weeks: planner 900 EUR." in bt
-    assert "fixed weekdays, fill to limit" in bt and "days of cover" in bt
+    assert "fixed weekdays Mon+Thu, filled to the limit" in bt and "days of cover" in bt
     assert "128.6 %" not in bt and "1.286" in bt      # a ratio, not a share
     assert "10.0 %" in bt                               # saving against the best baseline
     assert bt.count("data:image/svg+xml;base64,") == 1  # cumulative cost per policy

@@ -7,7 +7,6 @@ import stat
 import subprocess
 import sys
 import textwrap
-import time
 from pathlib import Path
 
 import pandas as pd
@@ -63,26 +62,31 @@ def test_private_file_is_atomic_and_owner_only(tmp_path):
     assert p.read_bytes() == b"abc" and _mode(p) == 0o600
 
 
+# Writes twenty files, says so, then waits on its standard input: the test kills it there, in
+# the middle of the run folder (a handshake on the pipes, no polling with sleeps).
 SLOW_WRITER = textwrap.dedent("""
-    import sys, time
+    import sys
     from pathlib import Path
     from planner.runfolder import RunFolderWriter
     with RunFolderWriter(Path(sys.argv[1])) as w:
-        for i in range(200):
+        for i in range(20):
             w.write_text(f"part{i:03d}.csv", "x" * 1000)
-            time.sleep(0.01)
+        print("written", flush=True)
+        sys.stdin.readline()
+        w.write_text("last.csv", "x")
 """)
 
 
 def test_kill_during_write_leaves_no_half_written_folder(tmp_path):
     target = tmp_path / "run"
-    proc = subprocess.Popen([sys.executable, "-c", SLOW_WRITER, str(target)], cwd=REPO)
-    deadline = time.monotonic() + 30
-    while not list(tmp_path.glob(".run.partial-*/part01*.csv")):
-        assert time.monotonic() < deadline, "writer never started"
-        time.sleep(0.005)
-    os.kill(proc.pid, signal.SIGKILL)
-    proc.wait()
+    proc = subprocess.Popen([sys.executable, "-c", SLOW_WRITER, str(target)], cwd=REPO,
+                            stdin=subprocess.PIPE, stdout=subprocess.PIPE, text=True)
+    try:
+        assert proc.stdout.readline().strip() == "written"
+        assert len(list(tmp_path.glob(".run.partial-*/part*.csv"))) == 20
+    finally:
+        os.kill(proc.pid, signal.SIGKILL)
+        proc.wait()
     assert not target.exists()
     # the next write cleans the leftover staging folder and publishes a complete folder
     with RunFolderWriter(target) as w:

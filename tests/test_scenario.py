@@ -550,7 +550,7 @@ def test_per_weekday_crews_and_visit_fee_override(rewrite_tiny, tiny_dir):
 
 
 def test_gap_in_history_is_a_warning():
-    # the tiny history lacks BRH-001 on 2026-10-20 (planner/demo/make_tiny.py)
+    # the tiny history lacks BRH-001 on 2026-10-20 (scenarios/make_tiny.py)
     s = load_scenario(TINY)
     gaps = [w for w in s.warnings if "missing day(s)" in w]
     assert len(gaps) == 1 and "BRH-001 (1 day(s))" in gaps[0]

@@ -24,8 +24,8 @@ import numpy as np
 import pandas as pd
 
 from planner.errors import InputError, Problem
+from planner.scenario import WEEKDAYS
 
-WEEKDAYS = ("Mon", "Tue", "Wed", "Thu", "Fri", "Sat", "Sun")
 
 DEFAULT_WEEKDAYS = (0, 3)       # Mon and Thu
 DEFAULT_TRIGGER_DAYS = 3.0      # days of cover below which the routine calls a visit
@@ -278,4 +278,10 @@ def trailing_weekday_mean(daily: pd.DataFrame, terminal_ids, dates: pd.DatetimeI
 ROUTINES = {
     "fixed_weekdays": fixed_weekdays,
     "days_of_cover": days_of_cover,
+}
+# how the run names the routines with their default settings (the plan's routine table, the
+# replay, the report)
+ROUTINE_LABELS = {
+    "fixed_weekdays": "fixed weekdays Mon+Thu, filled to the limit",
+    "days_of_cover": "days of cover (3-day trigger, 7 days + 25 %)",
 }

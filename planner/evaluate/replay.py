@@ -40,12 +40,13 @@ import numpy as np
 import pandas as pd
 
 from planner.costs import simulate
-from planner.evaluate.baselines import (crew_overruns, days_of_cover, fixed_weekdays,
+from planner.evaluate.baselines import (ROUTINE_LABELS, ROUTINES, crew_overruns,
                                         past_visits as past_visits_routine,
                                         trailing_weekday_mean)
 from planner.evaluate.bound import perfect_foresight
 from planner.evaluate.simulate import calibrated_plan, fresh_seed
 from planner.executor import Executor
+from planner.runfolder import rounded
 
 PLANNER = "planner"
 PLANNER_NAIVE = "planner_naive_forecast"
@@ -55,8 +56,7 @@ COST_PARTS = ("carry", "visit", "handling", "dry_penalty", "shortfall_penalty")
 LABELS = {
     PLANNER: "planner (champion forecast)",
     PLANNER_NAIVE: "planner (seasonal naive forecast)",
-    "fixed_weekdays": "fixed weekdays, fill to limit",
-    "days_of_cover": "days of cover",
+    **ROUTINE_LABELS,
     "past_visits": "past visits (recorded)",
 }
 
@@ -66,7 +66,7 @@ Routine = Callable[..., tuple[np.ndarray, np.ndarray]]
 def default_baselines() -> dict[str, Routine]:
     """The baseline routines of the backtest with their default settings (Mon and Thu; 3 days
     trigger, 7 days cover, 25 % safety). Each takes ``(problem, daily_demand=...)``."""
-    return {"fixed_weekdays": fixed_weekdays, "days_of_cover": days_of_cover}
+    return dict(ROUTINES)
 
 
 @dataclass(frozen=True)
@@ -518,18 +518,10 @@ def write_backtest(writer, result: BacktestResult, *, prefix: str = "backtest") 
     ``<prefix>.json`` (summary) and ``<prefix>.png`` (chart)."""
     from planner.report.cost_charts import backtest_chart
 
-    writer.write_csv(f"{prefix}.csv", _rounded(result.table))
-    writer.write_csv(f"{prefix}_daily.csv", _rounded(result.daily))
-    writer.write_csv(f"{prefix}_terminals.csv", _rounded(result.terminals))
+    writer.write_csv(f"{prefix}.csv", rounded(result.table))
+    writer.write_csv(f"{prefix}_daily.csv", rounded(result.daily))
+    writer.write_csv(f"{prefix}_terminals.csv", rounded(result.terminals))
     writer.write_json(f"{prefix}.json", result.summary)
     writer.write_with(f"{prefix}.png", lambda path: backtest_chart(result, path))
 
 
-def _rounded(frame: pd.DataFrame) -> pd.DataFrame:
-    out = frame.copy()
-    for col in out.columns:
-        if out[col].dtype.kind == "f":
-            out[col] = out[col].round(4 if col.startswith(("ratio", "saving")) else 2)
-        elif out[col].dtype.kind == "M":
-            out[col] = out[col].dt.strftime("%Y-%m-%d")
-    return out

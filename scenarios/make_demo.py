@@ -3,11 +3,11 @@ depots, 26 months) and a small family of other networks made by the same generat
 settings (:class:`NetworkSettings`).
 
 Everything here is invented: the banks, the regions, their towns and the machine ids.
-Run ``python -m planner.demo.make_demo`` from the repo root; it rewrites ``planner/demo/northvale``
+Run ``python -m planner.demo.make_demo`` from the repo root; it rewrites ``scenarios/northvale``
 byte for byte (one seeded random generator, drawn in a fixed order) and prints the check that
 the depot crew limits bind on busy days. ``python -m planner.demo.make_demo --network NAME
 [FOLDER]`` writes another network of :data:`NETWORKS` (the hold-out networks into their
-committed folders under ``planner/demo/holdout/`` by default; the development networks need a
+committed folders under ``scenarios/holdout/`` by default; the development networks need a
 folder).
 
 How the history is made, in the order of the code:
@@ -58,13 +58,14 @@ import holidays as holiday_calendars
 import numpy as np
 import pandas as pd
 
+from planner.scenario import WEEKDAYS  # the weekday names of the input contract
+
 SEED = 20261130
 
 HISTORY_START = pd.Timestamp("2024-10-01")
 LAST_HISTORY_DAY = pd.Timestamp("2026-11-29")  # a Sunday
 START_DATE = pd.Timestamp("2026-11-30")  # first planning day, a Monday
 TRUTH_DAYS_AHEAD = 28  # true demand is also kept for 4 weeks after the last history day
-WEEKDAYS = ("Mon", "Tue", "Wed", "Thu", "Fri", "Sat", "Sun")
 
 # Costs written into scenario.toml; the crew check below uses the same figures.
 VISIT_FEE = 125.0
@@ -238,7 +239,7 @@ NORTHVALE = NetworkSettings(
 
 
 # The other networks of the family. Two are frozen as a hold-out: their folders under
-# planner/demo/holdout/ are committed with their truth, and no choice of a method or setting
+# scenarios/holdout/ are committed with their truth, and no choice of a method or setting
 # of the planner may be made by looking at them (they only measure). The development networks
 # are for trying methods out; they are written on demand (``--network NAME FOLDER``).
 SALTREACH = NetworkSettings(
