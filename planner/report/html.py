@@ -15,6 +15,7 @@ plan was made (``method``).
 from __future__ import annotations
 
 import html
+from importlib import resources
 import math
 import re
 from dataclasses import dataclass
@@ -941,82 +942,11 @@ def _date_iso(d: Any) -> str:
 
 
 def _css() -> str:
+    """The page's style: the colours of the palette as custom properties, then page.css."""
     c = {**NEUTRALS, **{k: v for k, v in ROLE.items()}, "blue": OKABE_ITO["blue"]}
-    return f"""
-:root {{ color-scheme: light; }}
-* {{ box-sizing: border-box; }}
-body {{ font-family: "DejaVu Sans", "Liberation Sans", Arial, Helvetica, sans-serif;
-  color: {c['text']}; background: {c['white']}; margin: 0 auto; max-width: 1080px;
-  padding: 12px 24px 40px; font-size: 14px; line-height: 1.42; }}
-header {{ border-bottom: 3px solid {c['blue']}; margin-bottom: 8px; padding-bottom: 6px; }}
-header h1 {{ font-size: 24px; margin: 6px 0 2px; }}
-header .sub {{ color: {c['muted']}; margin: 0; }}
-.confidential {{ display: inline-block; border: 1.5px solid {c['text']}; padding: 0 6px;
-  font-size: 11px; letter-spacing: .08em; text-transform: uppercase; font-weight: bold; }}
-nav.toc {{ font-size: 13px; margin: 8px 0 4px; }}
-nav.toc a {{ margin-right: 12px; white-space: nowrap; }}
-a {{ color: {c['blue']}; }}
-section {{ margin-top: 26px; }}
-h2 {{ font-size: 19px; border-bottom: 1px solid {c['rule']}; padding-bottom: 3px;
-  margin: 0 0 8px; }}
-h3 {{ font-size: 15px; margin: 16px 0 6px; }}
-p {{ margin: 6px 0 8px; max-width: 78ch; }}
-.lead {{ font-size: 15px; }}
-.muted {{ color: {c['muted']}; font-weight: normal; }}
-.small {{ font-size: 11px; }}
-.note {{ color: {c['muted']}; font-style: italic; margin: 2px 0; }}
-.cautions {{ background: {c['info_fill']}; border-left: 5px solid {c['blue']};
-  padding: 6px 14px; }}
-.cautions ul {{ margin: 4px 0; padding-left: 18px; }}
-.grid2 {{ display: grid; grid-template-columns: 1fr 1fr; gap: 0 24px; }}
-table {{ border-collapse: collapse; margin: 6px 0 12px; font-size: 12.5px; }}
-caption {{ caption-side: bottom; text-align: left; color: {c['muted']}; font-size: 11px;
-  padding-top: 3px; }}
-th, td {{ border-bottom: 1px solid {c['rule']}; padding: 3px 8px; text-align: left;
-  vertical-align: top; }}
-thead th {{ background: {c['shade']}; border-bottom: 2px solid {c['muted']}; }}
-td.day, tbody td:first-child {{ white-space: nowrap; }}
-td.num, th.num {{ text-align: right; font-variant-numeric: tabular-nums; white-space: nowrap; }}
-table.kv th {{ font-weight: normal; color: {c['muted']}; padding-right: 16px; }}
-table.kv td {{ font-weight: bold; }}
-tr.total td {{ border-top: 2px solid {c['muted']}; font-weight: bold; }}
-tr.weekend td:first-child {{ font-style: italic; }}
-table.plan {{ width: 100%; }}
-table.plan tr.dayhead th {{ background: {c['shade']}; border-top: 2px solid {c['muted']};
-  font-size: 13px; }}
-table.plan tbody.empty th {{ background: {c['white']}; font-weight: normal;
-  border-top: 1px solid {c['rule']}; }}
-.over {{ background: {c['warn_fill']}; border: 1px solid {c['dry']}; padding: 0 4px;
-  border-radius: 2px; white-space: nowrap; }}
-.over-key {{ background: {c['warn_fill']}; border: 1px solid {c['dry']}; padding: 0 4px; }}
-.tag {{ border: 1px solid {c['text']}; padding: 0 4px; border-radius: 2px; font-size: 11px; }}
-figure.chart {{ margin: 8px 0; }}
-figure.chart img {{ max-width: 100%; height: auto; display: block; }}
-figure.chart.small img {{ max-width: 60%; }}
-figcaption {{ color: {c['muted']}; font-size: 11px; }}
-article.terminal {{ border-top: 1px solid {c['rule']}; padding: 6px 0 4px; }}
-article.terminal h3 {{ margin: 2px 0; font-size: 14px; }}
-article.terminal .facts {{ margin: 2px 0; font-size: 12.5px; max-width: none; }}
-img.tchart {{ max-width: 100%; height: auto; display: block; }}
-code {{ font-size: 12px; }}
-footer {{ margin-top: 30px; border-top: 1px solid {c['rule']}; color: {c['muted']};
-  font-size: 11px; padding-top: 6px; }}
-@page {{ size: A4; margin: 14mm 12mm 15mm 12mm; }}
-@media print {{
-  body {{ max-width: none; padding: 0; font-size: 9.5pt; }}
-  nav.toc, .screen-only {{ display: none; }}
-  section {{ margin-top: 0; break-before: page; page-break-before: always; }}
-  section#cautions, section#summary {{ break-before: auto; page-break-before: auto; }}
-  h2, h3 {{ break-after: avoid; page-break-after: avoid; }}
-  table {{ font-size: 8.5pt; }}
-  thead {{ display: table-header-group; }}
-  tr, figure, article.terminal, tbody.day {{ break-inside: avoid; page-break-inside: avoid; }}
-  .depot + .depot {{ break-before: page; page-break-before: always; }}
-  a {{ color: inherit; text-decoration: none; }}
-  .grid2 {{ display: block; }}
-  .cautions {{ border: 1px solid {c['text']}; border-left: 5px solid {c['blue']}; }}
-}}
-"""
+    colours = " ".join(f"--{name.replace('_', '-')}: {value};" for name, value in c.items())
+    sheet = resources.files("planner.report").joinpath("page.css").read_text(encoding="utf-8")
+    return f":root {{ {colours} }}\n{sheet}"
 
 
 def _page(ctx: _Context, sections: list[Section]) -> str:
