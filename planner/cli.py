@@ -126,11 +126,10 @@ def _engine(engine: str, scheduler: Optional[str], tls_ca_file: Optional[str],
     """The executor fields of :class:`planner.options.PlanOptions` from the command line
     (refused settings raise :class:`InputError` before any work)."""
     from planner.errors import Problem
-    from planner.executor import ClusterSettings, check_cluster_settings
+    from planner.executor import ClusterSettings, check_cluster_settings, engine_problems
 
-    if engine not in ("local", "dask"):
-        raise InputError(Problem("--executor", f"unknown executor {engine!r}",
-                                 "write --executor local or --executor dask"))
+    if engine_problems(engine):
+        raise InputError(engine_problems(engine))
     given = [name for name, value in (("--scheduler", scheduler), ("--tls-ca-file",
              tls_ca_file), ("--tls-cert", tls_cert), ("--tls-key", tls_key),
              ("--insecure", insecure)) if value]

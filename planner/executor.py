@@ -272,6 +272,17 @@ class DaskExecutor:
             self._cluster.close()
 
 
+ENGINES = ("local", "dask")
+
+
+def engine_problems(engine: str) -> list[Problem]:
+    """The problem of an unknown engine name (empty when it is one of :data:`ENGINES`)."""
+    if engine in ENGINES:
+        return []
+    return [Problem("--executor", f"unknown executor {engine!r}",
+                    "write --executor local or --executor dask")]
+
+
 def make_executor(engine: str = "local", *, workers: int = 1,
                   cluster: ClusterSettings | None = None) -> Executor:
     """``"local"``: a :class:`LocalExecutor` of ``workers``; ``"dask"``: a
@@ -282,5 +293,4 @@ def make_executor(engine: str = "local", *, workers: int = 1,
     if engine == "dask":
         settings = cluster or ClusterSettings(workers=workers)
         return DaskExecutor(settings)
-    raise InputError([Problem("--executor", f"unknown executor {engine!r}",
-                              "write --executor local or --executor dask")])
+    raise InputError(engine_problems(engine))

@@ -81,8 +81,7 @@ def run_depots(problem: PlanningProblem, plan_depot: Callable[[DepotTask], Depot
     t_count = problem.shape[0]
     runner: Executor = executor if executor is not None and t_count >= min_parallel \
         else LocalExecutor(1)
-    depot_count = len({int(k) for k in problem.depot_of})
-    workers = max(1, min(runner.workers, depot_count))
+    workers = max(1, min(runner.workers, np.unique(problem.depot_of).size))
     tasks = depot_tasks(problem, time_limit_s=time_limit_s, workers=workers, share=share,
                         solver=solver, gap_tolerance=gap_tolerance, exact=exact)
     plans = runner.map(plan_depot, tasks, progress=progress,
