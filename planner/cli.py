@@ -296,7 +296,7 @@ def plan(
     debug: DebugOpt = False,
 ) -> None:
     """Forecast demand, plan visits and loads, and write the run folder (plan.csv, orders.csv,
-    summary.json, report.html, plan.xlsx …); optionally with a replay of past weeks and
+    summary.json, report.html, plan.xlsx and more); optionally with a replay of past weeks and
     what-if variants, which then appear in the report too."""
 
     def action() -> None:
@@ -457,13 +457,19 @@ def backtest(
     _run(debug, action, as_json)
 
 
-@app.command()
+COMPARE_EXAMPLES = (
+    "Examples: planner compare --set costs.visit_fee=+15%\n\n"
+    "planner compare --set depots.Ashmere.max_visits_per_day=3\n\n"
+    "planner compare -s 'costs.visit_fee=+15%;costs.carry_rate_annual=0.06' (one variant "
+    "of two changes)")
+
+
+@app.command(epilog=COMPARE_EXAMPLES)
 def compare(
     scenario: ScenarioArg = None,
     sets: Annotated[Optional[list[str]], typer.Option(
         "--set", "-s", help="One what-if variant as KEY=VALUE, several joined by ';' or ',' "
-                            "(repeat --set for more variants), e.g. costs.visit_fee=+15% or "
-                            "depots.Ashmere.max_visits_per_day=3.")] = None,
+                            "(repeat --set for more variants); examples below.")] = None,
     variant: Annotated[Optional[list[Path]], typer.Option(
         "--variant", help="TOML file of one variant (same keys as scenario.toml, plus a "
                           "table per depot, depots.NAME); repeatable.")] = None,

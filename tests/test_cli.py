@@ -35,6 +35,21 @@ def test_every_command_has_help(command):
     assert "--debug" in text
 
 
+@pytest.mark.parametrize("command", COMMANDS)
+def test_help_at_80_columns_cuts_nothing_off(command):
+    # Rich ends a word too long for its column with "…"; every example must stay whole
+    result = runner.invoke(app, [command, "--help"], terminal_width=80, env={"COLUMNS": "80"})
+    assert result.exit_code == 0
+    assert "…" not in result.output
+    assert max(len(line) for line in result.output.splitlines()) <= 80
+
+
+def test_compare_help_shows_its_examples_whole_at_80_columns():
+    result = runner.invoke(app, ["compare", "--help"], terminal_width=80, env={"COLUMNS": "80"})
+    assert "depots.Ashmere.max_visits_per_day=3" in result.output
+    assert "costs.visit_fee=+15%" in result.output
+
+
 def test_plan_help_states_units_and_defaults():
     text = _plain(runner.invoke(app, ["plan", "--help"], terminal_width=200).output)
     for phrase in ("in days", "in seconds", "default: the scenario's paths.count",
