@@ -1,7 +1,9 @@
 """``plan.xlsx``: the plan as a spreadsheet, one sheet per depot and a summary, ready to print.
 
 Every sheet prints on A4, fitted to the page width, with its header row repeated on each page
-and "Confidential" in the page header. Dates carry a date format, amounts a currency format
+and "Confidential" in the page header. Column widths come from the content (a wide text column
+wraps), and every wrapped row is given the height of its lines, so that a spreadsheet program
+that keeps the stored row heights (LibreOffice does) prints no text over the next row. Dates carry a date format, amounts a currency format
 and risks a percent format, so the numbers stay numbers for whoever filters or sums them.
 
 Text from the input (terminal ids, sites, depot names) is always written as text: a cell whose
@@ -40,15 +42,17 @@ _BOLD = Font(bold=True)
 _TITLE = Font(bold=True, size=14)
 _RULE = Border(bottom=Side(style="thin", color=NEUTRALS["muted"][1:]))
 
-PLAN_COLUMNS = (   # header, plan column, kind, width
-    ("Day", "date", "date", 17),
-    ("Terminal", "terminal_id", "text", 14),
-    ("Site", "site", "text", 18),
-    ("Load", "load", "money", 13),
-    ("Expected residual", "expected_residual", "money", 13),
-    ("Dry risk until next visit", "dry_probability", "percent", 12),
-    ("Reason", "reason", "text", 60),
+PLAN_COLUMNS = (   # header, plan column, kind, widest (characters; wider text wraps)
+    ("Day", "date", "date", 18),
+    ("Terminal", "terminal_id", "text", 18),
+    ("Site", "site", "text", 24),
+    ("Load", "load", "money", 18),
+    ("Expected residual", "expected_residual", "money", 18),
+    ("Dry risk until next visit", "dry_probability", "percent", 18),
+    ("Reason", "reason", "text", 64),
 )
+LINE_POINTS = 15.0     # height of one line of 11-point text in a row (points)
+HEADER_WIDTH_SHARE = 1.25   # bold text is about this much wider than regular (common practice)
 
 
 def write_plan_xlsx(run: Any, writer: Any, *, name: str = "plan.xlsx") -> int:
@@ -109,20 +113,74 @@ def plan_workbook(run: Any) -> Workbook:
     for depot, title in zip(depots, names):
         ws = wb.create_sheet(title)
         rows = plan[plan["depot"] == depot].sort_values(["date", "terminal_id"])
-        _depot_sheet(ws, str(depot), rows, money_format, target)
+        _depot_sheet(ws, str(depot), rows, money_format, target, _currency_code(currency))
     return wb
 
 
 # ---------------------------------------------------------------------------------------------
 
 
-def _depot_sheet(ws, depot: str, rows: pd.DataFrame, money_format: str, target: float) -> None:
-    for j, (header, _, _, width) in enumerate(PLAN_COLUMNS, start=1):
+def _shown(value: Any, kind: str, currency: str) -> str:
+    """The text a spreadsheet shows for ``value`` in a column of ``kind`` (for widths)."""
+    if kind == "date":
+        day = _to_date(value)
+        return "" if day is None else f"{day:%a %d %b %Y}"
+    number = _number(value)
+    if kind == "money":
+        return "" if number is None else f"{number:,.0f} {currency}".strip()
+    if kind == "percent":
+        return "" if number is None else f"{number:.1%}"
+    return "" if value is None or (isinstance(value, float) and math.isnan(value)) else str(value)
+
+
+def column_widths(rows: pd.DataFrame, currency: str) -> list[float]:
+    """Each plan column's width in characters, from its content: the widest value shown (the
+    total row's bold sum included), at least the header's longest word, at most the column's
+    widest (text beyond it wraps)."""
+    widths = []
+    for header, column, kind, widest in PLAN_COLUMNS:
+        values = rows[column] if column in rows else pd.Series(dtype=object)
+        texts = [_shown(v, kind, currency) for v in values]
+        if kind == "money" and len(values):
+            total = float(pd.to_numeric(values, errors="coerce").sum())
+            texts.append(_shown(total, kind, currency) + "  ")   # bold: a little wider
+        longest = max((len(t) for t in texts), default=0)
+        # the header in at most two lines where the column's widest allows it
+        fits = next((w for w in range(4, widest + 1)
+                     if _lines(header, (w - 3) / HEADER_WIDTH_SHARE) <= 2), widest)
+        widths.append(float(min(max(longest + 3, fits, 8), widest)))
+    return widths
+
+
+def _lines(text: str, width: float) -> int:
+    """Lines a wrapped ``text`` takes in a column ``width`` characters wide (whole words)."""
+    lines, used = 1, 0
+    for word in str(text).split():
+        if used and used + 1 + len(word) > width:
+            lines, used = lines + 1, len(word)
+        else:
+            used += (1 if used else 0) + len(word)
+    return lines
+
+
+def _depot_sheet(ws, depot: str, rows: pd.DataFrame, money_format: str, target: float,
+                 currency: str = "") -> None:
+    widths = column_widths(rows, currency)
+    header_lines = 1
+    for j, (header, _, _, _) in enumerate(PLAN_COLUMNS, start=1):
         cell = ws.cell(row=1, column=j)
         _put(cell, header)
         cell.font, cell.fill, cell.border = _BOLD, _HEADER_FILL, _RULE
-        cell.alignment = Alignment(wrap_text=True, vertical="top")
-        ws.column_dimensions[get_column_letter(j)].width = width
+        # numbers stand right-aligned: so do their headings
+        cell.alignment = Alignment(wrap_text=True, vertical="top", horizontal="right"
+                                   if PLAN_COLUMNS[j - 1][2] in ("money", "percent")
+                                   else "left", indent=1 if j > 1 else 0)
+        ws.column_dimensions[get_column_letter(j)].width = widths[j - 1]
+        header_lines = max(header_lines,
+                           _lines(header, (widths[j - 1] - 3) / HEADER_WIDTH_SHARE))
+    # a wrapped header gets the height of all its lines, so it never runs into the first row
+    ws.row_dimensions[1].height = LINE_POINTS * header_lines + 3
+    reason_width = widths[[c for _, c, _, _ in PLAN_COLUMNS].index("reason")]
     r = 1
     for _, row in rows.iterrows():
         r += 1
@@ -132,6 +190,7 @@ def _depot_sheet(ws, depot: str, rows: pd.DataFrame, money_format: str, target: 
             if kind == "date":
                 _put(cell, _to_date(value))
                 cell.number_format = DATE_FORMAT
+                cell.alignment = Alignment(horizontal="left")
             elif kind == "money":
                 _put(cell, _number(value))
                 cell.number_format = money_format
@@ -146,7 +205,11 @@ def _depot_sheet(ws, depot: str, rows: pd.DataFrame, money_format: str, target: 
                 _put(cell, "" if value is None or (isinstance(value, float) and
                                                    math.isnan(value)) else str(value))
                 if column == "reason":
-                    cell.alignment = Alignment(wrap_text=True, vertical="top")
+                    cell.alignment = Alignment(wrap_text=True, vertical="top", horizontal="left",
+                                               indent=1)
+                    lines = _lines(cell.value or "", reason_width - 3)
+                    if lines > 1:
+                        ws.row_dimensions[r].height = LINE_POINTS * lines
     if r == 1:
         _put(ws.cell(row=2, column=1), "no visits planned in the horizon")
         r = 2
@@ -224,9 +287,12 @@ def _summary_sheet(ws, run: Any, money_format: str) -> None:
         ("Seed", (s.get("paths") or {}).get("seed"), "0"),
         ("Input fingerprint", str(s.get("input_fingerprint", "")), None),
     ]
+    # the label column as wide as its longest label (wrapped beyond 70 characters)
+    ws.column_dimensions["A"].width = min(max(len(label) for label, _, _ in figures) + 2, 70)
     r = 1
     for label, value, fmt in figures:
         r += 1
+        ws.cell(row=r, column=1).alignment = Alignment(wrap_text=True, vertical="top")
         _put(ws.cell(row=r, column=1), label)
         cell = ws.cell(row=r, column=2)
         _put(cell, value)
@@ -279,8 +345,11 @@ def _print_setup(ws, *, landscape: bool, title: str) -> None:
     ws.sheet_properties.pageSetUpPr = PageSetupProperties(fitToPage=True)
     ws.print_title_rows = "1:1"
     ws.print_options.gridLines = False
+    # inches: the page header and footer stand in the outer 0.3–0.6 inch, the table starts
+    # below 0.9, so neither overlaps the table's header row or its last row
     ws.page_margins.left = ws.page_margins.right = 0.5
-    ws.page_margins.top = ws.page_margins.bottom = 0.6
+    ws.page_margins.top = ws.page_margins.bottom = 0.9
+    ws.page_margins.header = ws.page_margins.footer = 0.3
     ws.freeze_panes = "A2"
     # '&' starts a header code: double it in our own text
     ws.oddHeader.left.text = "Confidential"
@@ -323,8 +392,12 @@ def _sheet_names(depots: Sequence[Any]) -> list[str]:
     return out
 
 
+def _currency_code(currency: str) -> str:
+    return re.sub(r"[^A-Za-z]", "", currency)[:3]
+
+
 def _money_format(currency: str) -> str:
-    code = re.sub(r"[^A-Za-z]", "", currency)[:3]
+    code = _currency_code(currency)
     return f'#,##0 "{code}"' if code else "#,##0"
 
 
