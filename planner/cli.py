@@ -526,6 +526,8 @@ def _compare_view(table, currency: str):
     return pd.DataFrame({
         "variant": table["variant"],
         f"expected cost ({currency})": table["expected_cost"].round(0),
+        "of which horizon": table["expected_cost_horizon"].round(0),
+        "of which look-ahead": table["expected_cost_look_ahead"].round(0),
         "change, 95 % interval": table.apply(change, axis=1),
         "dry days change": table["dry_days_delta"].round(2),
         "terminals over target": table["terminals_over_target"],

@@ -46,7 +46,7 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from planner.costs import MODES
+from planner.costs import MODES, period_slices
 from planner.errors import InputError, Problem
 from planner.executor import Executor
 from planner.runfolder import rounded
@@ -440,7 +440,9 @@ class CompareResult:
     """Variants planned on common demand paths and priced on common out-of-sample paths.
 
     - ``table``: one row per variant, the base first: ``variant``, ``changes`` (text),
-      ``expected_cost`` (out of sample, network, over horizon + tail days, currency),
+      ``expected_cost`` (out of sample, network, over the whole planned window, currency),
+      ``expected_cost_horizon`` and ``expected_cost_look_ahead`` (its two periods: the
+      horizon plan.csv lists, and the look-ahead planned after it),
       ``cost_delta``, ``cost_delta_low``, ``cost_delta_high`` (variant − base, mean and 95 %
       interval over the paired paths), ``cost_delta_share`` (of the base cost),
       ``expected_cost_in_sample`` (on the planning paths), ``in_sample_delta``,
@@ -449,7 +451,8 @@ class CompareResult:
       ``dry_days_delta_low``, ``dry_days_delta_high``, ``mean_dry_probability``,
       ``terminals_over_target``, ``status``, ``gap``, ``plan_source`` (whose solve the plan
       came from).
-    - ``terminals``: ``variant, terminal_id, depot, expected_cost, dry_probability,
+    - ``terminals``: ``variant, terminal_id, depot, expected_cost, expected_cost_horizon,
+      expected_cost_look_ahead, dry_probability,
       over_target, visits``.
     - ``summary``: the figures of ``compare.json``.
     - ``plans``: variant → (visits, loads) ``[T, D]``.
@@ -596,6 +599,8 @@ def _compare_scenario(scenario, variants, options, clean, forecast, fresh, base_
         source, visits, loads, in_sample = chosen[name]
         ledger = ledgers[name]
         cost = ledger.total().sum(axis=0)
+        by_period = {p: float(ledger.expected_cost(days).sum())
+                     for p, days in period_slices(horizon).items()}
         dry = ledger.dry[:, :, :horizon].sum(axis=(0, 2)).astype(float)
         c_mid, c_low, c_high = _interval(cost - base_cost)
         d_mid, d_low, d_high = _interval(dry - base_dry)
@@ -604,6 +609,8 @@ def _compare_scenario(scenario, variants, options, clean, forecast, fresh, base_
         res = results[name]
         rows.append({
             "variant": name, "changes": labels[name], "expected_cost": float(cost.mean()),
+            "expected_cost_horizon": by_period["horizon"],
+            "expected_cost_look_ahead": by_period["look_ahead"],
             "cost_delta": c_mid, "cost_delta_low": c_low, "cost_delta_high": c_high,
             "cost_delta_share": c_mid / float(base_cost.mean()) if base_cost.mean() else 0.0,
             "expected_cost_in_sample": in_sample,
@@ -621,7 +628,10 @@ def _compare_scenario(scenario, variants, options, clean, forecast, fresh, base_
         per_terminal.append(pd.DataFrame({
             "variant": name, "terminal_id": list(problem.terminal_ids),
             "depot": [problem.depots[k] for k in problem.depot_of],
-            "expected_cost": ledger.expected_cost(), "dry_probability": dry_prob,
+            "expected_cost": ledger.expected_cost(),
+            **{f"expected_cost_{p}": ledger.expected_cost(days)
+               for p, days in period_slices(horizon).items()},
+            "dry_probability": dry_prob,
             "over_target": dry_prob > target + 1e-12,
             "visits": visits[:, :horizon].sum(axis=1)}))
     table = pd.DataFrame(rows)

@@ -35,6 +35,10 @@ import pandas as pd
 
 MODES = ("swap", "topup")
 PART_COLUMNS = ("carry", "visit", "handling", "dry_penalty", "shortfall_penalty", "total")
+# The planned window in two periods: the horizon (the days plan.csv commits and lists) and the
+# look-ahead after it (planned so that the horizon ends well, neither committed nor listed)
+PERIODS = ("horizon", "look_ahead")
+PERIOD_LABELS = {"horizon": "horizon", "look_ahead": "look-ahead"}
 REDUCE_BLOCK = 1 << 20          # values per block when summing a ledger without full copies
 
 
@@ -112,18 +116,21 @@ class Ledger:
     def shortfall_penalty(self) -> np.ndarray:
         return (self.rates.shortfall_penalty_per_1000 / 1000.0) * self.shortfall
 
-    def _part_sums(self) -> dict[str, np.ndarray]:
-        """``[terminal, path]`` sums over days of each cost part, computed block by block of
-        terminals so that no full-size temporary is needed."""
-        if "_sums" not in self.__dict__:
+    def _part_sums(self, days: slice = slice(None)) -> dict[str, np.ndarray]:
+        """``[terminal, path]`` sums over ``days`` of each cost part (visit fees ``[terminal,
+        1]``), computed block by block of terminals so that no full-size temporary is
+        needed; kept per day range."""
+        t_count, p_count, d_count = self.balance_open.shape
+        key = ("_sums", *days.indices(d_count))
+        if key not in self.__dict__:
             r = self.rates
-            t_count, p_count, d_count = self.balance_open.shape
             held = np.empty((t_count, p_count))
             short = np.empty((t_count, p_count))
             dry = np.empty((t_count, p_count))
-            step = max(1, REDUCE_BLOCK // max(p_count * d_count, 1))
+            width = len(range(*days.indices(d_count)))
+            step = max(1, REDUCE_BLOCK // max(p_count * width, 1))
             for i in range(0, t_count, step):
-                b, d = self.balance_open[i:i + step], self.demand[i:i + step]
+                b, d = self.balance_open[i:i + step, :, days], self.demand[i:i + step, :, days]
                 gap = b - d
                 dry[i:i + step] = (gap < 0).sum(axis=2)          # demand > balance
                 np.maximum(gap, 0.0, out=gap)
@@ -131,41 +138,60 @@ class Ledger:
                 np.subtract(d, b, out=gap)
                 np.maximum(gap, 0.0, out=gap)
                 short[i:i + step] = gap.sum(axis=2)
-            sums = {
+            self.__dict__[key] = {
                 "carry": r.carry_rate_daily * held,
+                "visit": self.visit[:, days].sum(axis=1)[:, None].astype(float),
                 "handling": (r.handling_per_1000 / 1000.0)
-                * (self.returned.sum(axis=2) + self.loads.sum(axis=1)[:, None]),
+                * (self.returned[:, :, days].sum(axis=2)
+                   + self.loads[:, days].sum(axis=1)[:, None]),
                 "dry_penalty": r.dry_day_penalty * dry,
                 "shortfall_penalty": (r.shortfall_penalty_per_1000 / 1000.0) * short,
             }
-            self.__dict__["_sums"] = sums
-        return self.__dict__["_sums"]
+        return self.__dict__[key]
 
-    def total(self) -> np.ndarray:
-        """``[terminal, path]`` cost over all days."""
-        s = self._part_sums()
+    def total(self, days: slice = slice(None)) -> np.ndarray:
+        """``[terminal, path]`` cost over ``days`` (all days by default)."""
+        s = self._part_sums(days)
         return (s["carry"] + s["handling"] + s["dry_penalty"] + s["shortfall_penalty"]
-                + self.visit.sum(axis=1)[:, None])
+                + s["visit"])
 
-    def expected_cost(self) -> np.ndarray:
-        """``[terminal]`` expected cost (mean over paths) over all days."""
-        return self.total().mean(axis=1)
+    def expected_cost(self, days: slice = slice(None)) -> np.ndarray:
+        """``[terminal]`` expected cost (mean over paths) over ``days`` (all by default)."""
+        return self.total(days).mean(axis=1)
 
-    def parts(self) -> pd.DataFrame:
-        """Expected cost parts per terminal (one row per terminal, in terminal order).
+    def parts(self, days: slice = slice(None)) -> pd.DataFrame:
+        """Expected cost parts per terminal over ``days`` (all by default; one row per
+        terminal, in terminal order).
 
         Columns ``carry, visit, handling, dry_penalty, shortfall_penalty, total``.
         """
-        s = self._part_sums()
+        s = self._part_sums(days)
         frame = pd.DataFrame({
             "carry": s["carry"].mean(axis=1),
-            "visit": self.visit.sum(axis=1).astype(float),
+            "visit": s["visit"][:, 0],
             "handling": s["handling"].mean(axis=1),
             "dry_penalty": s["dry_penalty"].mean(axis=1),
             "shortfall_penalty": s["shortfall_penalty"].mean(axis=1),
         })
-        frame["total"] = self.expected_cost()
+        frame["total"] = self.expected_cost(days)
         return frame
+
+    def period_parts(self, horizon_days: int) -> pd.DataFrame:
+        """Expected cost parts per terminal and period: the horizon (its first
+        ``horizon_days`` days, which plan.csv lists) and the look-ahead after it. One row per
+        terminal and period, terminal order then period order; columns ``period``
+        (:data:`PERIODS`) and those of :meth:`parts`. The two periods add up to
+        :meth:`parts` over all days."""
+        frames = []
+        for name, days in period_slices(horizon_days).items():
+            frame = self.parts(days)
+            frame.insert(0, "period", name)
+            frame.insert(0, "_terminal", np.arange(len(frame)))
+            frames.append(frame)
+        both = pd.concat(frames, ignore_index=True)
+        both["_order"] = both["period"].map({p: i for i, p in enumerate(PERIODS)})
+        both = both.sort_values(["_terminal", "_order"], kind="stable", ignore_index=True)
+        return both.drop(columns=["_terminal", "_order"])
 
     def dry_probability(self, days: int | None = None) -> np.ndarray:
         """``[terminal]`` share of paths with at least one dry day in the first ``days`` days
@@ -187,6 +213,19 @@ class Ledger:
             out[i:i + step] = (self.demand[i:i + step, :, :days]
                                > self.balance_open[i:i + step, :, :days]).any(axis=2)
         return out
+
+
+def period_slices(horizon_days: int) -> dict[str, slice]:
+    """The days of each of :data:`PERIODS`: ``horizon`` = the first ``horizon_days`` days,
+    ``look_ahead`` = the rest of the planned window."""
+    return {"horizon": slice(0, int(horizon_days)), "look_ahead": slice(int(horizon_days), None)}
+
+
+def period_totals(parts: pd.DataFrame) -> dict[str, dict[str, float]]:
+    """Network sums of a :meth:`Ledger.period_parts` frame: ``{period: {part: sum}}``."""
+    columns = [c for c in PART_COLUMNS if c in parts]
+    return {p: {c: float(parts.loc[parts["period"] == p, c].sum()) for c in columns}
+            for p in PERIODS}
 
 
 def cycle_ends(visits: np.ndarray) -> np.ndarray:

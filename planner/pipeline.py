@@ -14,6 +14,7 @@ import numpy as np
 import pandas as pd
 
 from planner import __version__
+from planner.costs import PART_COLUMNS, PERIODS, period_slices, period_totals
 from planner.executor import Executor
 from planner.options import PlanOptions, check_memory, run_executor
 from planner.runfolder import rounded
@@ -121,7 +122,9 @@ class PlanRun:
     - ``plan``: one row per visit in the horizon (terminal_id, depot, date, load,
       expected_residual, dry_probability, reason).
     - ``orders``: cash per depot and day (depot, date, visits, load_total, expected_returns).
-    - ``costs``: expected cost parts per terminal (currency units over horizon + tail days).
+    - ``costs``: expected cost parts per terminal and period (``period`` = ``horizon``, the
+      days plan.csv lists, or ``look_ahead``, the days planned after it; currency units, mean
+      over the plan's own demand paths).
     - ``paths``: demand paths [terminal, path, day] over ``dates``.
     - ``summary``: the content of ``summary.json``.
     """
@@ -155,12 +158,17 @@ class PlanRun:
             ("terminals / visits planned in the horizon",
              f"{s['network']['terminals']} / {s['network']['visits']}"),
             ("cash to load in the horizon", f"{s['network']['load_total']:,.0f} {cur}"),
-            ("expected cost, horizon + tail (own paths)", f"{s['costs']['total']:,.0f} {cur}"),
+            (f"expected cost in the horizon, {s['horizon_days']} days (own paths)",
+             f"{s['costs']['horizon']['total']:,.0f} {cur}"),
+            (f"expected cost of the look-ahead, {s['tail_days']} more days (own paths; "
+             "not committed)", f"{s['costs']['look_ahead']['total']:,.0f} {cur}"),
             ("solver status, gap", f"{s['solver']['status']}, {s['solver']['gap']:.3%}"),
         ]
         oos = s.get("out_of_sample")
         if oos:
-            rows.append(("expected cost on fresh paths", f"{oos['expected_cost']:,.0f} {cur}"))
+            rows.append(("expected cost on fresh paths: horizon / look-ahead",
+                         f"{oos['expected_cost_horizon']:,.0f} / "
+                         f"{oos['expected_cost_look_ahead']:,.0f} {cur}"))
             rows.append((f"terminals over the target on {oos['paths']:,} fresh paths (more "
                          "than 2 standard errors)", str(oos["terminals_over_target"])))
             rows.append(("mean cycle dry risk on fresh paths",
@@ -173,10 +181,10 @@ class PlanRun:
         if base and "plan" in routines:
             best = min(base, key=lambda r: r["total"])
             saving = 1 - routines["plan"]["total"] / best["total"]
-            rows.append((f"best baseline routine: {best['routine']}",
+            rows.append((f"best baseline routine (fresh paths, whole window): {best['routine']}",
                          f"{best['total']:,.0f} {cur} (plan saves {saving:.1%})"))
         if "bound" in routines and "plan" in routines:
-            rows.append(("perfect-foresight bound (fresh paths)",
+            rows.append(("perfect-foresight bound (fresh paths, whole window)",
                          f"{routines['bound']['total']:,.0f} {cur} (plan / bound "
                          f"{routines['plan']['total'] / routines['bound']['total']:.2f})"))
         return pd.DataFrame(rows, columns=["figure", "value"])
@@ -253,8 +261,7 @@ def _plan_scenario(source: str | Path | Scenario, options: PlanOptions, progress
                                                 executor=executor)
     plan = plan_frame(problem, result)
     orders = orders_frame(problem, result)
-    costs = result.ledger.parts()
-    costs.insert(0, "terminal_id", list(problem.terminal_ids))
+    costs = plan_costs(problem, result)
     summary = _summary(scenario, options, forecast, problem, result, plan, costs)
     summary["calendar_notices"] = calendar_notices(scenario, clean)
     if calibration is not None:
@@ -310,7 +317,9 @@ def evaluate_plan(scenario: Scenario, clean: Any, problem: Any, result: Any,
     fresh demand paths (drawn with a seed independent of the optimizer's).
 
     Returns the routine table (one row per routine: ``routine``, ``kind`` plan | baseline |
-    bound, ``total`` and its parts in currency over horizon + tail days, ``dry_probability``
+    bound, ``total`` and its parts in currency over the whole planned window,
+    ``horizon_total`` and ``look_ahead_total`` its two periods (the bound: the window only, as
+    it is not split by period), ``dry_probability``
     = mean over terminals of the worst visit cycle's share of fresh paths that run dry,
     ``terminals_over_target``, ``visits`` in the horizon) and the out-of-sample check.
     """
@@ -335,6 +344,8 @@ def evaluate_plan(scenario: Scenario, clean: Any, problem: Any, result: Any,
         dry, _ = cycle_dry_shares(ledger, np.asarray(visits, dtype=bool))
         rows.append({"routine": name, "kind": kind,
                      **{c: float(parts[c].sum()) for c in parts.columns},
+                     **{f"{p}_total": float(ledger.expected_cost(days).sum())
+                        for p, days in period_slices(horizon).items()},
                      "dry_probability": float(dry.mean()),
                      "terminals_over_target": int(over_target(dry, fresh.shape[1],
                                                               target).sum()),
@@ -464,18 +475,29 @@ def plan_problem(scenario, clean, problem, options: PlanOptions, progress=None, 
     return calibration.problem, result, calibration
 
 
+def plan_costs(problem: Any, result: Any) -> pd.DataFrame:
+    """The plan's expected cost parts per terminal and period on its own paths
+    (:meth:`planner.costs.Ledger.period_parts` with ``terminal_id`` first): ``costs.csv``."""
+    costs = result.ledger.period_parts(problem.horizon_days)
+    costs.insert(0, "terminal_id", np.repeat(list(problem.terminal_ids), len(PERIODS)))
+    return costs
+
+
 def _summary(scenario: Scenario, options: PlanOptions, forecast: Any, problem: Any,
              result: Any, plan: pd.DataFrame, costs: pd.DataFrame) -> dict[str, Any]:
     target = scenario.max_dry_probability
     dry = np.asarray(result.dry_probability, dtype=float)
     per_terminal = []
+    parts = [c for c in PART_COLUMNS if c in costs]
+    by_period = {p: costs[costs["period"] == p].set_index("terminal_id") for p in PERIODS}
     for i, tid in enumerate(problem.terminal_ids):
-        row = {k: (round(float(v), 2) if isinstance(v, (float, np.floating)) else v)
-               for k, v in costs.iloc[i].items()}
+        row = {"terminal_id": tid,
+               **{p: round(float(by_period["horizon"].loc[tid, p]), 2) for p in parts},
+               "look_ahead_total": round(float(by_period["look_ahead"].loc[tid, "total"]), 2)}
         row["dry_probability"] = round(float(dry[i]), 4)
         row["note"] = result.notes[i] if result.notes is not None else ""
         per_terminal.append(row)
-    parts = [c for c in costs.columns if c != "terminal_id"]
+    totals = period_totals(costs)
     return {
         "scenario": scenario.name,
         "currency": scenario.currency,
@@ -490,7 +512,8 @@ def _summary(scenario: Scenario, options: PlanOptions, forecast: Any, problem: A
                   "exactly per terminal, network assignment under crew limits",
         "network": {"terminals": len(problem.terminal_ids), "visits": int(len(plan)),
                     "load_total": round(float(plan["load"].sum()), 2)},
-        "costs": {p: round(float(costs[p].sum()), 2) for p in parts},
+        "costs": {**{p: {c: round(v, 2) for c, v in totals[p].items()} for p in PERIODS},
+                  "window_total": round(sum(totals[p]["total"] for p in PERIODS), 2)},
         "service": {
             "definition": SERVICE_DEFINITION,
             "max_dry_probability": target,

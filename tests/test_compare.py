@@ -143,6 +143,14 @@ def test_a_variant_identical_to_the_base_has_a_delta_of_exactly_zero(common):
     base, variant = result.plans["base"], result.plans[same.name]
     np.testing.assert_array_equal(base[0], variant[0])
     np.testing.assert_array_equal(base[1], variant[1])
+    # every cost is shown for the horizon and the look-ahead apart; together the window
+    table = result.table
+    assert np.allclose(table["expected_cost_horizon"] + table["expected_cost_look_ahead"],
+                       table["expected_cost"])
+    assert (table["expected_cost_look_ahead"] > 0).all()
+    per = result.terminals
+    assert np.allclose(per["expected_cost_horizon"] + per["expected_cost_look_ahead"],
+                       per["expected_cost"])
 
 
 def test_a_fee_increase_never_lowers_the_planned_cost(common):

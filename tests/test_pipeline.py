@@ -70,9 +70,41 @@ def test_summary_reports_solver_service_and_fingerprint(tiny_run):
     assert summary["paths"] == {"count": 120, "seed": 11}
     assert {"numpy", "pandas", "statsmodels", "pulp", "highspy"} <= set(summary["versions"])
     costs = pd.read_csv(out / "costs.csv")
-    assert summary["costs"]["total"] == pytest.approx(costs["total"].sum(), abs=0.05)
+    assert summary["costs"]["window_total"] == pytest.approx(costs["total"].sum(), abs=0.05)
+    for period in ("horizon", "look_ahead"):
+        assert summary["costs"][period]["total"] == pytest.approx(
+            costs.loc[costs["period"] == period, "total"].sum(), abs=0.05)
+    # the two periods are the window the optimizer minimised
+    assert summary["costs"]["window_total"] == pytest.approx(summary["solver"]["objective"],
+                                                             abs=0.05)
     routines = {r["routine"]: r for r in summary["routines"]}
     assert routines["perfect-foresight bound"]["total"] <= routines["planner"]["total"] + 1e-6
+    plan_row = routines["planner"]
+    assert plan_row["horizon_total"] + plan_row["look_ahead_total"] == pytest.approx(
+        plan_row["total"], abs=0.05)
+
+
+def test_horizon_costs_match_the_visits_plan_csv_lists(tiny_run):
+    """The horizon's visit fees are the fees of plan.csv's rows, its handling is paid on their
+    loads and expected residuals; whatever the look-ahead plans is costed apart."""
+    run, out = tiny_run
+    plan = pd.read_csv(out / "plan.csv", parse_dates=["date"])
+    costs = pd.read_csv(out / "costs.csv")
+    horizon = costs[costs["period"] == "horizon"]
+    problem = run.problem
+    index = {t: i for i, t in enumerate(problem.terminal_ids)}
+    days = {d: j for j, d in enumerate(problem.dates)}
+    fees = sum(problem.visit_fee[index[r.terminal_id], days[r.date]]
+               for r in plan.itertuples())
+    assert horizon["visit"].sum() == pytest.approx(fees, abs=0.05)
+    rate = run.scenario.costs.handling_per_1000 / 1000.0
+    moved = plan["load"].sum() + plan["expected_residual"].sum()
+    assert horizon["handling"].sum() == pytest.approx(rate * moved, abs=0.05 * len(plan) + 0.05)
+    # the look-ahead has visits of its own (the optimizer plans them) that plan.csv omits
+    look = costs[costs["period"] == "look_ahead"]
+    later = run.result.visits[:, problem.horizon_days:]
+    assert look["visit"].sum() == pytest.approx(
+        float((problem.visit_fee[:, problem.horizon_days:] * later).sum()), abs=0.05)
 
 
 def test_same_inputs_and_seed_give_byte_identical_plan(tiny_run, tmp_path):
@@ -87,7 +119,7 @@ def test_same_inputs_and_seed_give_byte_identical_plan(tiny_run, tmp_path):
 def test_python_api_returns_frames_and_paths(tiny_run):
     run = planner.plan_scenario(TINY, path_count=50, origins=2, evaluate=False)
     assert isinstance(run.plan, pd.DataFrame) and isinstance(run.orders, pd.DataFrame)
-    assert isinstance(run.costs, pd.DataFrame) and len(run.costs) == 3
+    assert isinstance(run.costs, pd.DataFrame) and len(run.costs) == 3 * 2   # two periods
     # the horizon and the look-ahead past it (PlanOptions.tail_for: six weeks in all)
     assert run.paths.shape == (3, 50, 14 + 28) and (run.paths >= 0).all()
     assert run.problem.horizon_days == 14 and run.summary["tail_days"] == 28

@@ -294,7 +294,7 @@ def test_optional_sections_from_evaluation_backtest_comparison_and_diagnostics(s
     start = text.index("<section id='summary'>")
     summary = text[start:text.index("</section>", start)]
     # the best baseline is the cheapest routine that is neither the plan nor the bound
-    assert "best baseline: visit when below 2 days" in summary
+    assert "best baseline routine (visit when below 2 days)" in summary
     saving = plan_total * 1.1 - plan_total
     assert f"{saving:,.0f} EUR" in summary
     d0 = text.index("<section id='diagnostics'>")

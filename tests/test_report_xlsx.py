@@ -67,7 +67,16 @@ def test_dates_currency_and_percent_are_formatted(run):
               for r in range(2, summary.max_row + 1)}
     assert labels["First planning day"].number_format == DATE_FORMAT
     assert labels["Cash to load in the horizon"].value == pytest.approx(run.plan["load"].sum())
-    assert labels["Expected cost: total"].value == pytest.approx(run.costs["total"].sum())
+    horizon = run.costs[run.costs["period"] == "horizon"]
+    look = run.costs[run.costs["period"] == "look_ahead"]
+    days = run.problem.horizon_days
+    assert labels[f"Expected cost in the horizon, {days} days: total"].value == \
+        pytest.approx(horizon["total"].sum())
+    assert labels[f"Expected cost in the horizon, {days} days: visit fees"].value == \
+        pytest.approx(horizon["visit"].sum())
+    tail = run.summary["tail_days"]
+    assert labels[f"Expected cost in the look-ahead, {tail} days (not committed): total"].value \
+        == pytest.approx(look["total"].sum())
     texts = [c.value for row in summary.iter_rows() for c in row if isinstance(c.value, str)]
     for caution in CAUTIONS:
         assert caution in texts

@@ -23,7 +23,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from planner.costs import Ledger, cycle_dry_shares, simulate
+from planner.costs import PERIODS, Ledger, cycle_dry_shares, period_slices, simulate
 from planner.executor import Executor
 
 SHARP_SE = 0.002            # standard error aimed at, at the target (0.2 points)
@@ -71,7 +71,8 @@ class OutOfSampleCheck:
     """A plan priced on fresh demand paths.
 
     ``frame``: one row per terminal — ``terminal_id``, ``depot``, ``expected_cost`` (over all
-    planned days, horizon + tail, currency), its parts ``carry, visit, handling, dry_penalty,
+    planned days, horizon + look-ahead, currency), ``expected_cost_horizon`` and
+    ``expected_cost_look_ahead`` (its two periods), its parts ``carry, visit, handling, dry_penalty,
     shortfall_penalty``, ``expected_cost_in_sample`` (on the optimizer's own paths),
     ``dry_probability`` (the worst visit cycle's share of fresh paths that run dry before the
     next visit), ``dry_probability_se`` (its binomial standard error),
@@ -95,7 +96,8 @@ def check_plan(problem, visits: np.ndarray, loads: np.ndarray, demand: np.ndarra
     ``problem``) and compare with its figures on the problem's own paths.
 
     ``reachable`` ``[T]`` bool: terminals whose target can be met (default all).
-    ``summary`` keys: ``paths``, ``seed`` (of the fresh paths, if given), ``expected_cost``,
+    ``summary`` keys: ``paths``, ``seed`` (of the fresh paths, if given), ``expected_cost``
+    (the window; ``expected_cost_horizon``, ``expected_cost_look_ahead`` its periods),
     ``expected_cost_in_sample``, ``optimism`` (share by which the in-sample cost is below the
     out-of-sample cost), ``max_dry_probability`` (the target), ``standard_error_at_target``,
     ``terminals_over_target`` (of the reachable ones), ``reachable_terminals``,
@@ -119,6 +121,8 @@ def check_plan(problem, visits: np.ndarray, loads: np.ndarray, demand: np.ndarra
         "terminal_id": list(problem.terminal_ids),
         "depot": [problem.depots[k] for k in problem.depot_of],
         "expected_cost": parts["total"].to_numpy(),
+        **{f"expected_cost_{p}": fresh.expected_cost(days)
+           for p, days in period_slices(horizon).items()},
         **{c: parts[c].to_numpy() for c in ("carry", "visit", "handling", "dry_penalty",
                                              "shortfall_penalty")},
         "expected_cost_in_sample": own.expected_cost(),
@@ -136,6 +140,8 @@ def check_plan(problem, visits: np.ndarray, loads: np.ndarray, demand: np.ndarra
         "paths": int(paths),
         "seed": None if seed is None else int(seed),
         "expected_cost": round(cost, 2),
+        **{f"expected_cost_{p}": round(float(frame[f"expected_cost_{p}"].sum()), 2)
+           for p in PERIODS},
         "expected_cost_in_sample": round(cost_in, 2),
         "optimism": round((cost - cost_in) / cost, 6) if cost else 0.0,
         "max_dry_probability": target,

@@ -143,7 +143,7 @@ def as_evaluation(obj: Any) -> Evaluation | None:
         out["kind"] = f[kind_col].astype(str).str.lower().to_numpy()
     else:
         out["kind"] = [_kind(n) for n in f[name_col].astype(str)]
-    for p in PARTS + ("dry_probability",):
+    for p in PARTS + ("horizon_total", "look_ahead_total", "dry_probability"):
         c = _pick(f, (p,))
         if c is not None:
             out[p] = pd.to_numeric(f[c], errors="coerce").to_numpy()
@@ -242,7 +242,8 @@ def _tables_of(obj: Any) -> tuple[list, str]:
 BACKTEST_COLUMNS = ("label", "total", "carry", "visit", "handling", "dry_penalty",
                     "shortfall_penalty", "visits", "emergency_visits", "dry_days",
                     "crew_overrun_days", "ratio_to_bound", "saving_vs_best_baseline")
-COMPARE_COLUMNS = ("variant", "changes", "expected_cost", "cost_delta", "cost_delta_low",
+COMPARE_COLUMNS = ("variant", "changes", "expected_cost", "expected_cost_horizon",
+                   "expected_cost_look_ahead", "cost_delta", "cost_delta_low",
                    "cost_delta_high", "cost_delta_share", "visits", "load_total", "dry_days",
                    "mean_dry_probability", "terminals_over_target", "status", "gap")
 

@@ -24,6 +24,7 @@ from typing import Any, Iterable, Sequence
 import numpy as np
 import pandas as pd
 
+from planner.costs import PART_COLUMNS, PERIODS, period_totals
 from planner.forecast.models import model_label
 from planner.report import charts
 from planner.report.extras import (Evaluation, as_backtest, as_comparison, as_diagnostics,
@@ -201,8 +202,8 @@ def _summary_section(ctx: _Context, evaluation: Evaluation | None) -> Section:
         ("Terminals", _int(len(ctx.terminal_ids))),
         ("Depots", _int(len(ctx.depots))),
         ("First planning day", _date_long(ctx.dates[0]) if len(ctx.dates) else "—"),
-        ("Horizon", f"{ctx.horizon} days (planned with {s.get('tail_days', '—')} more days "
-                    "that value its end)"),
+        ("Horizon", f"{ctx.horizon} days (and a look-ahead of {s.get('tail_days', '—')} days, "
+                    "planned so that the horizon ends well, not committed)"),
         ("Replenishment", esc(str(getattr(ctx.scenario, "replenishment", "")))),
         ("Visits planned in the horizon", _int(network.get("visits", len(ctx.plan)))),
         ("Cash to load in the horizon", _money_cur(load_total, ctx.currency)),
@@ -210,37 +211,52 @@ def _summary_section(ctx: _Context, evaluation: Evaluation | None) -> Section:
     ]
     key = _kv_table(figures, "key-figures")
 
-    parts = [c for c in ctx.costs.columns if c not in ("terminal_id",)]
-    sums = {p: float(pd.to_numeric(ctx.costs[p], errors="coerce").sum()) for p in parts}
-    total = sums.get("total", sum(v for k, v in sums.items() if k != "total"))
+    by_period = period_totals(ctx.costs)
+    parts = [c for c in PART_COLUMNS if c in by_period["horizon"]]
+    sums = by_period["horizon"]
+    total = sums["total"]
+    window = sum(by_period[p]["total"] for p in PERIODS)
     best = evaluation.best_baseline() if evaluation is not None else None
     fresh = evaluation.plan() if evaluation is not None else None
-    head = ["cost part", f"plan ({esc(ctx.currency)})", "share"]
+    head = [f"cost part ({esc(ctx.currency)})", "horizon", "share", "look-ahead"]
     if best is not None and fresh is not None:
         # the baseline is priced on fresh paths, so compare it with the plan on those paths
-        head += ["plan on fresh paths", f"best baseline: {esc(best['name'])}", "difference"]
+        head += ["plan, fresh paths", "best baseline", "difference"]
     rows = []
-    for p in parts:
-        cells = [esc(PART_LABELS.get(p, p.replace("_", " "))), _money(sums[p]),
-                 _pct(sums[p] / total) if total else "—"]
+    labels = [*(esc(PART_LABELS.get(p, p.replace("_", " "))) for p in parts),
+              "of which the horizon", "of which the look-ahead"]
+    keys = [*parts, "horizon_total", "look_ahead_total"]
+    for label, p in zip(labels, keys):
+        if p in parts:
+            cells = [label, _money(sums[p]), _pct(sums[p] / total) if total else "—",
+                     _money(by_period["look_ahead"][p])]
+        elif best is None or fresh is None:
+            continue
+        else:
+            cells = [label, "", "", ""]
         if best is not None and fresh is not None:
             b, f = best.get(p), fresh.get(p)
             cells += [_money(f) if f is not None else "—",
                       _money(b) if b is not None else "—",
                       _money(f - b, signed=True) if b is not None and f is not None else "—"]
         rows.append(cells)
-    caption = (f"Expected cost over the horizon and the {s.get('tail_days', '—')} tail days, "
-               "mean over the demand paths the plan was made from")
+    caption = (f"Expected cost, mean over the demand paths the plan was made from: the horizon "
+               f"(the {ctx.horizon} days the plan lists; its visit fees are those of plan.csv) "
+               f"and the look-ahead after it ({s.get('tail_days', '—')} days planned so that "
+               f"the horizon ends well; not committed), {_money_cur(window, ctx.currency)} "
+               "together")
     if fresh is not None:
-        caption += ("; the last columns price the plan and the routine on fresh demand paths "
-                    "drawn with an independent seed")
+        caption += ("; the last columns price the plan and the best baseline routine ("
+                    f"{esc(best['name']) if best is not None else '—'}) over the whole window "
+                    "on fresh demand paths drawn with an independent seed")
     cost_table = _table(head, rows, numeric=range(1, len(head)), row_classes=[
-        "total" if p == "total" else "" for p in parts], caption=caption + ".")
+        "total" if p == "total" else "" for p in keys if p in parts or fresh is not None],
+        caption=caption + ".")
 
     compare = ""
     if evaluation is not None:
         compare = _evaluation_block(ctx, evaluation,
-                                    float(fresh["total"]) if fresh is not None else total)
+                                    float(fresh["total"]) if fresh is not None else window)
 
     worst = float(ctx.dry_probability.max()) if ctx.dry_probability.size else 0.0
     oos = s.get("out_of_sample") or {}
@@ -277,7 +293,7 @@ def _summary_section(ctx: _Context, evaluation: Evaluation | None) -> Section:
     solve = _kv_table([
         ("Solver status", _status(str(solver.get("status", getattr(result, "status", ""))))),
         ("Solver", esc(str(solver.get("name", getattr(result, "solver", ""))))),
-        ("Expected cost of the plan (objective)",
+        ("Expected cost of the plan (objective: horizon and look-ahead)",
          _money_cur(solver.get("objective", getattr(result, "objective", math.nan)),
                     ctx.currency)),
         ("Best lower bound", _money_cur(bound, ctx.currency) if _finite(bound)
@@ -312,6 +328,8 @@ def _evaluation_block(ctx: _Context, ev: Evaluation, plan_total: float) -> str:
         total = float(r["total"])
         diff = total - plan_total
         rows.append([esc(r["name"]), esc(r["kind"]), _money(total),
+                     *(_money(r.get(f"{p}_total")) if _finite(r.get(f"{p}_total")) else "—"
+                       for p in PERIODS),
                      _money(diff, signed=True) if r["kind"] != "plan" else "—",
                      _pct(diff / total) if r["kind"] != "plan" and total else "—",
                      _pct(r["dry_probability"]) if "dry_probability" in table
@@ -330,13 +348,16 @@ def _evaluation_block(ctx: _Context, ev: Evaluation, plan_total: float) -> str:
                 f" the plan {'saves' if saving >= 0 else 'costs'} "
                 f"<b>{_money_cur(abs(saving), ctx.currency)}</b>"
                 f" ({_pct(abs(share))}{' less' if saving >= 0 else ' more'}) on the same demand"
-                " paths.</p>")
+                " paths, over the whole planned window (horizon and look-ahead).</p>")
     note = f"<p class='note'>{esc(ev.note)}</p>" if ev.note else ""
     return ("<h3 id='against-baselines'>Against baseline routines</h3>" + lead + _figure(
         charts.svg_data_uri(fig), "Expected cost of the plan, the baseline routines and the "
         "perfect-foresight bound") + _table(
-        ["routine", "kind", f"expected cost ({esc(ctx.currency)})", "more than the plan",
-         "plan saves", "dry risk"], rows, numeric=range(2, 6)) + note)
+        ["routine", "kind", f"whole window ({esc(ctx.currency)})", "horizon", "look-ahead",
+         "more than the plan", "plan saves", "dry risk"], rows, numeric=range(2, 8),
+        caption="Expected cost on fresh demand paths: the whole planned window, and its "
+                "horizon and look-ahead apart (the bound only whole: its cycles cross the "
+                "horizon's end).") + note)
 
 
 def _crew_section(ctx: _Context) -> Section:
@@ -495,7 +516,10 @@ def _terminal_section(ctx: _Context) -> Section:
             f"worst cycle dry risk {_risk(ctx.dry_probability[i], ctx.target)}",
         ]
         if costs is not None and tid in costs.index and "total" in costs:
-            facts.append(f"expected cost {_money_cur(costs.loc[tid, 'total'], ctx.currency)}")
+            own = costs.loc[[tid]].set_index("period")["total"]
+            facts.append(f"expected cost {_money_cur(own['horizon'], ctx.currency)} in the "
+                         f"horizon ({_money_cur(own['look_ahead'], ctx.currency)} in the "
+                         "look-ahead)")
         if model:
             facts.append(f"forecast model {esc(model_label(model))}")
         note = (f"<p class='note'>{esc(ctx.notes[i])}</p>" if ctx.notes[i] else "")

@@ -231,7 +231,7 @@ def sample_run(folder: Path, *, terminals: int = 6, seed: int = 7, horizon_days:
     """Build a :class:`planner.pipeline.PlanRun` of an invented network (see the module doc)."""
     from planner.cleaning import clean_history
     from planner.optimize.problem import build_problem, result_from_plan
-    from planner.pipeline import PlanOptions, PlanRun, _summary
+    from planner.pipeline import PlanOptions, PlanRun, _summary, plan_costs
     from planner.scenario import load_scenario
 
     root = write_sample_scenario(Path(folder), terminals=terminals, seed=seed,
@@ -245,8 +245,7 @@ def sample_run(folder: Path, *, terminals: int = 6, seed: int = 7, horizon_days:
     result = result_from_plan(problem, visits, loads, status="feasible",
                               bound=float("-inf"), solver="greedy preview", time_s=0.0)
     plan, orders = plan_frames(problem, result)
-    costs = result.ledger.parts()
-    costs.insert(0, "terminal_id", list(problem.terminal_ids))
+    costs = plan_costs(problem, result)
     options = PlanOptions(tail_days=tail_days)
     summary = _summary(scenario, options, forecast, problem, result, plan, costs)
     summary["method"] = ("preview: invented history, lognormal demand paths and a greedy visit "

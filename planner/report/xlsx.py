@@ -28,6 +28,7 @@ from openpyxl.styles import Alignment, Border, Font, PatternFill, Side
 from openpyxl.utils import get_column_letter
 from openpyxl.worksheet.properties import PageSetupProperties
 
+from planner.costs import PERIODS, period_totals
 from planner.report.palette import NEUTRALS, ROLE
 from planner.report.wording import CAUTIONS, PART_LABELS
 
@@ -248,7 +249,7 @@ def _summary_sheet(ws, run: Any, money_format: str) -> None:
         ("Currency", str(getattr(run.scenario, "currency", "")), None),
         ("First planning day", _to_date(first), DATE_FORMAT),
         ("Horizon (days)", int(run.problem.horizon_days), "0"),
-        ("Tail days valuing the horizon end", s.get("tail_days"), "0"),
+        ("Look-ahead days planned after the horizon", s.get("tail_days"), "0"),
         ("Replenishment", str(getattr(run.scenario, "replenishment", "")), None),
         ("Terminals", len(run.problem.terminal_ids), "0"),
         ("Visits planned in the horizon", int(len(plan)), "0"),
@@ -257,9 +258,14 @@ def _summary_sheet(ws, run: Any, money_format: str) -> None:
         ("Expected cash returned at those visits",
          float(plan["expected_residual"].sum()) if len(plan) else 0.0, money_format),
     ]
-    for part in [c for c in costs.columns if c != "terminal_id"]:
-        figures.append((f"Expected cost: {PART_LABELS.get(part, part.replace('_', ' '))}",
-                        float(pd.to_numeric(costs[part], errors="coerce").sum()), money_format))
+    by_period = period_totals(costs)
+    for period in PERIODS:
+        span = (f"horizon, {int(run.problem.horizon_days)} days" if period == "horizon" else
+                f"look-ahead, {s.get('tail_days')} days (not committed)")
+        for part, value in by_period[period].items():
+            figures.append((f"Expected cost in the {span}: "
+                            f"{PART_LABELS.get(part, part.replace('_', ' '))}", value,
+                            money_format))
     figures += [
         ("Service target (per visit: the chance of running dry before the next visit)",
          service.get("max_dry_probability", getattr(run.scenario, "max_dry_probability", None)),
