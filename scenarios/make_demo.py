@@ -559,9 +559,10 @@ def legacy_routine(terms: pd.DataFrame, rng: np.random.Generator,
                     if _gap_cover(week, list(p)) * t["level"] * LEGACY_MARGIN <= t["limit"]]
             if fits:
                 # the pattern that leaves the depot's busiest day least full, then the one
-                # with the most even gaps between visits; remaining ties at random
+                # with the most even gaps between visits; remaining ties at random (both
+                # rounded: their last bits differ from one processor's arithmetic to another's)
                 score = [(round(max((busy[d] + 1) / crews[d] for d in p), 6),
-                          _gap_cover(week, p), rng.random()) for p in fits]
+                          round(_gap_cover(week, p), 9), rng.random()) for p in fits]
                 chosen = fits[min(range(len(fits)), key=score.__getitem__)]
                 break
         if chosen is None:  # even a visit every allowed day would not cover it
