@@ -120,7 +120,8 @@ class PlanRun:
     """Everything one planning run produced (frames documented in the README, 'Outputs').
 
     - ``plan``: one row per visit in the horizon (terminal_id, depot, date, load,
-      expected_residual, dry_probability, reason).
+      expected_residual, dry_probability, next_visit, next_visit_in, load_stop, reason;
+      planner.optimize.frames).
     - ``orders``: cash per depot and day (depot, date, visits, load_total, expected_returns).
     - ``costs``: expected cost parts per terminal and period (``period`` = ``horizon``, the
       days plan.csv lists, or ``look_ahead``, the days planned after it; currency units, mean

@@ -276,13 +276,15 @@ def test_plan_and_orders_frames_describe_the_plan():
     plan = plan_frame(problem, result)
     horizon = problem.horizon_days
     assert list(plan.columns) == ["terminal_id", "depot", "date", "load", "expected_residual",
-                                  "dry_probability", "reason"]
+                                  "dry_probability", "next_visit", "next_visit_in",
+                                  "load_stop", "reason"]
     assert len(plan) == int(result.visits[:, :horizon].sum())
     assert plan["date"].max() < problem.dates[horizon]
     assert plan["load"].sum() == pytest.approx(result.loads[:, :horizon].sum())
-    committed = plan["reason"] == "committed"
+    committed = plan["load_stop"] == "committed"
     assert committed.sum() == int(problem.committed[:, :horizon].sum())
-    assert plan.loc[~committed, "reason"].str.contains("dry risk").all()
+    assert plan.loc[committed, "reason"].str.startswith("committed load").all()
+    # (every word of the reasons is checked in tests/test_plan_reasons.py)
     assert ((plan["dry_probability"] >= 0) & (plan["dry_probability"] <= 1)).all()
     orders = orders_frame(problem, result)
     assert len(orders) == len(problem.depots) * horizon

@@ -45,8 +45,9 @@ def test_plan_respects_every_hard_limit(tiny_run):
     run, out = tiny_run
     scenario = load_scenario(TINY)
     plan = pd.read_csv(out / "plan.csv", parse_dates=["date"])
-    assert list(plan.columns[:7]) == ["terminal_id", "depot", "date", "load",
-                                      "expected_residual", "dry_probability", "reason"]
+    assert list(plan.columns) == ["terminal_id", "depot", "date", "load", "expected_residual",
+                                  "dry_probability", "next_visit", "next_visit_in",
+                                  "load_stop", "reason"]
     t = scenario.terminals.loc[plan["terminal_id"]]
     assert np.allclose(plan["load"] / t["bundle"].to_numpy(),
                        np.round(plan["load"] / t["bundle"].to_numpy()))

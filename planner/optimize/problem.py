@@ -62,6 +62,10 @@ class PlanningProblem:
     mode: str                       # "swap" | "topup"
     max_dry_probability: float      # the target per visit cycle (share of paths)
     dry_allowance: np.ndarray | None = None   # [T] calibrated in-sample dry paths per cycle
+    # what the plan's reasons name (planner.optimize.frames); None when unknown
+    lock_days: int = 0                        # first days with committed visits only
+    visit_weekdays: np.ndarray | None = None  # [T, 7] bool: the terminal's visit_days, Mon…Sun
+    limit_names: tuple[str, ...] | None = None  # [T] "capacity" or "insurance limit"
 
     @property
     def shape(self) -> tuple[int, int, int]:
@@ -86,7 +90,11 @@ class PlanningProblem:
             fixed_load=self.fixed_load[idx], visit_fee=self.visit_fee[idx],
             crew_limit=self.crew_limit, rates=self.rates, mode=self.mode,
             max_dry_probability=self.max_dry_probability,
-            dry_allowance=None if self.dry_allowance is None else self.dry_allowance[idx])
+            dry_allowance=None if self.dry_allowance is None else self.dry_allowance[idx],
+            lock_days=self.lock_days,
+            visit_weekdays=None if self.visit_weekdays is None else self.visit_weekdays[idx],
+            limit_names=None if self.limit_names is None
+            else tuple(self.limit_names[i] for i in idx))
 
 
 @dataclass(frozen=True)
@@ -203,6 +211,10 @@ def build_problem(scenario, paths: np.ndarray, dates, *, tail_days: int,
         rates=CostRates.from_settings(costs),
         mode=scenario.replenishment,
         max_dry_probability=float(scenario.max_dry_probability),
+        lock_days=int(scenario.lock_days),
+        visit_weekdays=allowed_weekdays,
+        limit_names=tuple(np.where(rows["insurance_limit"] < rows["capacity"],
+                                   "insurance limit", "capacity")),
     )
 
 

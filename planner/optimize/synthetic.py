@@ -91,6 +91,9 @@ def synthetic_problem(*, terminals: int = 12, depots: int = 2, horizon_days: int
                         dry_day_penalty=600.0, shortfall_penalty_per_1000=2.0),
         mode=mode,
         max_dry_probability=max_dry_probability,
+        lock_days=lock_days,
+        visit_weekdays=allowed_weekdays,
+        limit_names=("capacity",) * terminals,
     )
 
 

@@ -192,44 +192,11 @@ def greedy_visits(problem) -> tuple[np.ndarray, np.ndarray]:
     return visits, loads
 
 
-def plan_frames(problem, result) -> tuple[pd.DataFrame, pd.DataFrame]:
-    """The plan (one row per visit in the horizon) and the orders (per depot and day), with
-    the columns of ``PlanRun.plan`` and ``PlanRun.orders``."""
-    ledger = result.ledger
-    horizon = problem.horizon_days
-    rows = []
-    for t, tid in enumerate(problem.terminal_ids):
-        days = np.flatnonzero(result.visits[t])
-        for j, d in enumerate(days):
-            if d >= horizon:
-                break
-            nxt = int(days[j + 1]) if j + 1 < len(days) else problem.shape[2]
-            dry = ledger.dry[t, :, d:nxt].any(axis=1).mean()
-            if problem.committed[t, d]:
-                reason = "committed visit (lock days)"
-            else:
-                reason = (f"balance may not last: covers until "
-                          f"{problem.dates[min(nxt, problem.shape[2] - 1)]:%a %d %b}")
-            rows.append((tid, problem.depots[problem.depot_of[t]], problem.dates[d],
-                         float(result.loads[t, d]), float(ledger.returned[t, :, d].mean()),
-                         float(dry), reason))
-    plan = pd.DataFrame(rows, columns=["terminal_id", "depot", "date", "load",
-                                       "expected_residual", "dry_probability", "reason"])
-    plan = plan.sort_values(["date", "depot", "terminal_id"], ignore_index=True)
-    grid = pd.MultiIndex.from_product([problem.depots, problem.dates[:horizon]],
-                                      names=["depot", "date"])
-    orders = (plan.groupby(["depot", "date"])
-              .agg(visits=("load", "size"), load_total=("load", "sum"),
-                   expected_returns=("expected_residual", "sum"))
-              .reindex(grid, fill_value=0).reset_index())
-    orders["visits"] = orders["visits"].astype(int)
-    return plan, orders
-
-
 def sample_run(folder: Path, *, terminals: int = 6, seed: int = 7, horizon_days: int = 14,
                path_count: int = 200, tail_days: int = 7):
     """Build a :class:`planner.pipeline.PlanRun` of an invented network (see the module doc)."""
     from planner.cleaning import clean_history
+    from planner.optimize.frames import orders_frame, plan_frame
     from planner.optimize.problem import build_problem, result_from_plan
     from planner.pipeline import PlanOptions, PlanRun, _summary, plan_costs
     from planner.scenario import load_scenario
@@ -244,7 +211,7 @@ def sample_run(folder: Path, *, terminals: int = 6, seed: int = 7, horizon_days:
     visits, loads = greedy_visits(problem)
     result = result_from_plan(problem, visits, loads, status="feasible",
                               bound=float("-inf"), solver="greedy preview", time_s=0.0)
-    plan, orders = plan_frames(problem, result)
+    plan, orders = plan_frame(problem, result), orders_frame(problem, result)
     costs = plan_costs(problem, result)
     options = PlanOptions(tail_days=tail_days)
     summary = _summary(scenario, options, forecast, problem, result, plan, costs)
