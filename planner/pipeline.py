@@ -55,6 +55,13 @@ class CheckResult:
             ("replenishment", sc.replenishment),
             ("lock days", f"{sc.lock_days} (only committed visits in them)"),
             ("visit fee by weekday", f"{fees} {sc.currency}"),
+        ]
+        own = sc.terminals["visit_fee"].dropna()
+        if len(own):
+            shown = ", ".join(f"{tid} {fee:,.0f}" for tid, fee in own.head(8).items())
+            more = f" and {len(own) - 8} more" if len(own) > 8 else ""
+            rows.append(("own visit fees (every day)", f"{shown}{more} {sc.currency}"))
+        rows += [
             ("holidays", (f"{cal.country}" + (f"-{cal.subdivision}" if cal.subdivision else ""))
              if cal.country else "none declared"),
             ("paydays", ", ".join(str(p) for p in cal.paydays) or "none declared"),

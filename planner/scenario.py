@@ -199,7 +199,8 @@ def load_scenario(path: str | Path) -> Scenario:
     start = settings["start_date"]
     start = dispense["date"].max() + pd.Timedelta(days=1) if start is None else start
     horizon = settings["planning.horizon_days"]
-    committed = _read_committed(root, terminals, start, horizon, notices)
+    committed = _read_committed(root, terminals, start, horizon, notices,
+                                settings["planning.lock_days"])
 
     history = dispense[dispense["date"] < start].reset_index(drop=True)
     if history.empty:
@@ -1222,7 +1223,7 @@ def _check_outlying_dates(table, dates: pd.Series, problems: list[Problem]) -> N
 
 
 def _read_committed(root: Path, terminals: pd.DataFrame, start: pd.Timestamp, horizon: int,
-                    notices: list[str]) -> pd.DataFrame:
+                    notices: list[str], lock_days: int = 0) -> pd.DataFrame:
     file = "committed.csv"
     table = _read_csv(root, file, ["terminal_id", "date", "load"], [], notices,
                       optional_file=True)
@@ -1266,6 +1267,16 @@ def _read_committed(root: Path, terminals: pd.DataFrame, start: pd.Timestamp, ho
         notices.append(f"{file}: line {table.line(i)}: {frame['terminal_id'].iloc[i]} is "
                        f"visited on a {WEEKDAYS[weekday[i]]}, outside its visit_days; kept "
                        "as ordered")
+    # a committed visit after the lock days is kept too (the plan is built around it)
+    late = np.flatnonzero((dates >= start + pd.Timedelta(days=lock_days)).to_numpy())
+    for i in late[:MAX_ROWS_PER_CHECK]:
+        notices.append(f"{file}: line {table.line(i)}: {frame['terminal_id'].iloc[i]} on "
+                       f"{dates.iloc[i]:%Y-%m-%d} lies after the {lock_days} lock day"
+                       f"{'' if lock_days == 1 else 's'}; kept as ordered, and the plan is "
+                       "built around it (remove the row to let the planner choose that visit)")
+    if len(late) > MAX_ROWS_PER_CHECK:
+        notices.append(f"{file}: {len(late) - MAX_ROWS_PER_CHECK} more committed visits lie "
+                       "after the lock days; kept as ordered")
     out = pd.DataFrame({"terminal_id": frame["terminal_id"], "date": dates, "load": load})
     return out.sort_values(["terminal_id", "date"], ignore_index=True, kind="stable")
 
