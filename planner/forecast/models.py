@@ -25,7 +25,7 @@ parameters; learned attributes end in ``_``):
 Withdrawals are multiplicative (README, "How a plan is made", step 4), so the models work on ``z = log1p(y)`` and map
 back with ``expm1`` (monotone, so quantiles map exactly; the result is clipped at 0).
 
-The three candidates (:data:`CANDIDATES`) and an extra:
+The three candidates (:data:`CANDIDATES`, also the models the stage can be given by name):
 
 - :class:`SeasonalNaive` — weekly seasonal naive; band and paths from its own historical
   forecast errors (every past 14-day window is one joint error vector).
@@ -38,9 +38,6 @@ The three candidates (:data:`CANDIDATES`) and an extra:
   ``method="css"``: conditional sum of squares (feasible GLS: OLS, ARMA on the residuals,
   GLS re-estimate of the regression, twice); ``method="mle"``: exact maximum likelihood with
   statsmodels ``SARIMAX``.
-- :class:`LocalLevel` — the local level model (random walk plus noise) by exact diffuse
-  maximum likelihood (Durbin & Koopman 2001, §2.10); no weekly seasonality, so it is not a
-  default candidate for cash demand.
 
 The fast defaults exist because the whole forecasting stage of a terminal (cleaning, backtest
 of every candidate, 500 paths) must take no more than three plain statsmodels Holt-Winters fits;
@@ -261,7 +258,6 @@ MODEL_LABELS = {
     "seasonal_naive": "weekly seasonal naive",
     "holt_winters": "Holt-Winters",
     "regression_arima": "regression with ARIMA errors",
-    "local_level": "local level",
     "network_profile": "network weekday profile",
 }
 
@@ -883,117 +879,8 @@ class RegressionARIMA(_LogLinearModel):
                 f"{how}")
 
 
-# --------------------------------------------------------------------------------------------
-# Local level model
-# --------------------------------------------------------------------------------------------
-
-
-def local_level_filter(y: np.ndarray, q: float) -> tuple[np.ndarray, np.ndarray, float, float]:
-    """Kalman filter of the local level model with exact diffuse initialisation, in units of
-    the observation variance (signal-to-noise ratio ``q = σ²η / σ²ε``).
-
-    The diffuse prior makes the first observation the level's first estimate
-    (``a_2 = y_1``, ``P_2 = 1 + q``; Durbin & Koopman 2001, §2.9). Returns the prediction
-    errors ``v_t`` and their scaled variances ``F_t`` for t = 2…n, and the predicted level and
-    its scaled variance for day n + 1.
-    """
-    n = len(y)
-    v = np.empty(n - 1)
-    f = np.empty(n - 1)
-    a, p = float(y[0]), 1.0 + q
-    for t in range(1, n):
-        ft = p + 1.0
-        vt = y[t] - a
-        k = p / ft
-        v[t - 1], f[t - 1] = vt, ft
-        a += k * vt
-        p = p * (1.0 - k) + q
-    return v, f, a, p
-
-
-class LocalLevel(DemandModel):
-    """Local level model ``y_t = μ_t + ε_t``, ``μ_{t+1} = μ_t + η_t`` (Durbin & Koopman 2001,
-    ch. 2) by exact diffuse maximum likelihood, with σ²ε concentrated out and the ratio
-    ``q = σ²η/σ²ε`` found by a bounded one-dimensional search. ``log=True`` models log1p
-    demand instead of the original scale. Exog is ignored.
-    """
-
-    name = "local_level"
-
-    def __init__(self, *, log: bool = False, min_days: int = 3):
-        self.log = log
-        self.min_days = min_days
-
-    def _scale(self, y: np.ndarray) -> np.ndarray:
-        y = np.asarray(y, dtype=float)
-        return np.log1p(y) if self.log else y
-
-    @staticmethod
-    def _profile(log_q: float, x: np.ndarray) -> float:
-        v, f, _, _ = local_level_filter(x, math.exp(log_q))
-        s2 = float(np.sum(v * v / f)) / len(v)
-        return 0.5 * len(v) * math.log(s2) + 0.5 * float(np.sum(np.log(f)))
-
-    def fit(self, y: np.ndarray, exog: np.ndarray | None = None) -> "LocalLevel":
-        x = self._scale(y)
-        _check_length(x, max(self.min_days, 3), self.name)
-        res = optimize.minimize_scalar(self._profile, bounds=(-20.0, 10.0), args=(x,),
-                                       method="bounded", options={"xatol": 1e-9})
-        if not math.isfinite(res.fun):
-            raise ModelFitError("local_level: the likelihood is not finite")
-        q = math.exp(res.x)
-        v, f, _, _ = local_level_filter(x, q)
-        self.sigma2_eps_ = float(np.sum(v * v / f)) / len(v)
-        self.sigma2_eta_ = q * self.sigma2_eps_
-        self.loglike_ = -0.5 * len(v) * (math.log(2 * math.pi) + 1) - res.fun
-        self._set_state(x)
-        return self
-
-    def _set_state(self, x: np.ndarray) -> None:
-        q = self.sigma2_eta_ / self.sigma2_eps_
-        v, f, a, p = local_level_filter(x, q)
-        self.level_, self.level_var_ = a, p * self.sigma2_eps_
-        self.residuals_ = v / np.sqrt(f * self.sigma2_eps_)
-
-    def apply(self, y: np.ndarray, exog: np.ndarray | None = None) -> "LocalLevel":
-        new = self.clone()
-        new.sigma2_eps_, new.sigma2_eta_ = self.sigma2_eps_, self.sigma2_eta_
-        new.loglike_ = self.loglike_
-        new._set_state(new._scale(y))
-        return new
-
-    def _moments(self, h: int) -> tuple[np.ndarray, np.ndarray]:
-        var = self.level_var_ + np.arange(h) * self.sigma2_eta_ + self.sigma2_eps_
-        return np.full(h, self.level_), np.sqrt(var)
-
-    def _back(self, x: np.ndarray) -> np.ndarray:
-        return np.maximum(np.expm1(x) if self.log else x, 0.0)
-
-    def quantiles(self, h: int, exog_future: np.ndarray | None = None,
-                  levels=LEVELS) -> np.ndarray:
-        mu, sd = self._moments(h)
-        z = special.ndtri(np.asarray(levels, dtype=float))
-        return self._back(mu[None, :] + z[:, None] * sd[None, :])
-
-    def point(self, h: int, exog_future: np.ndarray | None = None) -> np.ndarray:
-        return self._back(np.full(h, self.level_))
-
-    def mean(self, h: int, exog_future: np.ndarray | None = None) -> np.ndarray:
-        mu, sd = self._moments(h)
-        return self._back(mu + 0.5 * sd ** 2) if self.log else self._back(mu)
-
-    def simulate(self, h: int, n_paths: int, rng: np.random.Generator,
-                 exog_future: np.ndarray | None = None) -> np.ndarray:
-        start = self.level_ + math.sqrt(self.level_var_) * rng.standard_normal((n_paths, 1))
-        eta = rng.standard_normal((n_paths, h)) * math.sqrt(self.sigma2_eta_)
-        eta[:, 0] = 0.0                         # day n+1 starts at the predicted level
-        eps = rng.standard_normal((n_paths, h)) * math.sqrt(self.sigma2_eps_)
-        return self._back(start + np.cumsum(eta, axis=1) + eps)
-
-
 CANDIDATES: dict[str, type[DemandModel]] = {
     SeasonalNaive.name: SeasonalNaive,
     HoltWinters.name: HoltWinters,
     RegressionARIMA.name: RegressionARIMA,
 }
-MODELS: dict[str, type[DemandModel]] = {**CANDIDATES, LocalLevel.name: LocalLevel}

@@ -40,7 +40,7 @@ from planner.errors import InputError, Problem
 from planner.executor import Executor, LocalExecutor
 from planner.forecast.scoring import (backtest_model, champion_reason, fit_network_spread,
                                        origin_days, rank_models, spread_by_day, widen)
-from planner.forecast.models import LEVELS, MODELS, DemandModel, ModelFitError
+from planner.forecast.models import CANDIDATES, LEVELS, DemandModel, ModelFitError
 from planner.forecast.profile import NetworkProfile, network_profile
 from planner.forecast.paths import simulate_paths, terminal_seeds
 
@@ -210,7 +210,7 @@ def candidate_models(models: Sequence[str | DemandModel] | Mapping[str, DemandMo
     """Unfitted prototypes of the candidate models, in fallback order.
 
     ``models``: None (the default candidates), model names (see
-    :data:`~planner.forecast.models.MODELS`) or model instances. Raises
+    :data:`~planner.forecast.models.CANDIDATES`) or model instances. Raises
     :class:`~planner.errors.InputError` for an unknown name.
     """
     items = list(models.values()) if isinstance(models, Mapping) else \
@@ -220,17 +220,17 @@ def candidate_models(models: Sequence[str | DemandModel] | Mapping[str, DemandMo
         if isinstance(item, DemandModel):
             out.append(item)
             continue
-        cls = MODELS.get(str(item))
+        cls = CANDIDATES.get(str(item))
         if cls is None:
             raise InputError(Problem("models", f"unknown forecasting model {item!r}",
-                                     f"use one of {', '.join(MODELS)}"))
+                                     f"use one of {', '.join(CANDIDATES)}"))
         kwargs = {}
         if "offset_column" in inspect.signature(cls).parameters:
             kwargs["offset_column"] = offset_column
         out.append(cls(**kwargs))
     if not out:
         raise InputError(Problem("models", "no forecasting model given",
-                                 f"give at least one of {', '.join(MODELS)}"))
+                                 f"give at least one of {', '.join(CANDIDATES)}"))
     return tuple(out)
 
 
