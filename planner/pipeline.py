@@ -8,7 +8,7 @@ from __future__ import annotations
 import platform
 from dataclasses import dataclass, replace
 from pathlib import Path
-from typing import Any, Callable
+from typing import TYPE_CHECKING, Any, Callable
 
 import numpy as np
 import pandas as pd
@@ -19,6 +19,14 @@ from planner.executor import Executor
 from planner.options import PlanOptions, check_memory, run_executor
 from planner.runfolder import rounded
 from planner.scenario import Scenario, load_scenario
+
+if TYPE_CHECKING:  # types only: these modules load when a run needs them
+    from planner.cleaning import CleanHistory
+    from planner.compare import CompareResult
+    from planner.evaluate.replay import BacktestResult
+    from planner.evaluate.simulate import OutOfSampleCheck
+    from planner.forecast.stage import ForecastResult
+    from planner.optimize.problem import PlanningProblem, PlanResult
 
 @dataclass(frozen=True)
 class CheckResult:
@@ -139,19 +147,19 @@ class PlanRun:
 
     scenario: Scenario
     options: PlanOptions
-    clean: Any
-    forecast: Any
-    problem: Any
-    result: Any
+    clean: CleanHistory
+    forecast: ForecastResult
+    problem: PlanningProblem
+    result: PlanResult
     plan: pd.DataFrame
     orders: pd.DataFrame
     costs: pd.DataFrame
     summary: dict[str, Any]
     evaluation: pd.DataFrame | None = None
-    out_of_sample: Any = None
+    out_of_sample: OutOfSampleCheck | None = None
     diagnostics: dict[str, Any] | None = None
-    backtest: Any = None
-    comparison: Any = None
+    backtest: BacktestResult | None = None
+    comparison: CompareResult | None = None
     run_folder: Path | None = None
 
     @property
@@ -318,9 +326,9 @@ def _plan_scenario(source: str | Path | Scenario, options: PlanOptions, progress
                    summary, evaluation, check, diagnostics, backtest, comparison)
 
 
-def evaluate_plan(scenario: Scenario, clean: Any, problem: Any, result: Any,
-                  options: PlanOptions, *, executor: Executor | None = None
-                  ) -> tuple[pd.DataFrame, Any]:
+def evaluate_plan(scenario: Scenario, clean: CleanHistory, problem: PlanningProblem,
+                  result: PlanResult, options: PlanOptions, *, executor: Executor | None = None
+                  ) -> tuple[pd.DataFrame, OutOfSampleCheck]:
     """Price the plan, the baseline routines and the perfect-foresight bound on the same
     fresh demand paths (drawn with a seed independent of the optimizer's).
 
@@ -461,7 +469,8 @@ def calendar_notices(scenario, clean) -> list[str]:
             for r in found.itertuples()]
 
 
-def plan_problem(scenario, clean, problem, options: PlanOptions, progress=None, *,
+def plan_problem(scenario: Scenario, clean: CleanHistory, problem: PlanningProblem,
+                 options: PlanOptions, progress: Progress | None = None, *,
                  executor: Executor | None = None):
     """Solve the schedule on ``executor``, calibrated unless ``options.calibrate`` is off
     (:func:`planner.evaluate.simulate.calibrated_plan`). Returns ``(problem with its in-sample
@@ -483,7 +492,7 @@ def plan_problem(scenario, clean, problem, options: PlanOptions, progress=None, 
     return calibration.problem, result, calibration
 
 
-def plan_costs(problem: Any, result: Any) -> pd.DataFrame:
+def plan_costs(problem: PlanningProblem, result: PlanResult) -> pd.DataFrame:
     """The plan's expected cost parts per terminal and period on its own paths
     (:meth:`planner.costs.Ledger.period_parts` with ``terminal_id`` first): ``costs.csv``."""
     costs = result.ledger.period_parts(problem.horizon_days)
@@ -491,8 +500,9 @@ def plan_costs(problem: Any, result: Any) -> pd.DataFrame:
     return costs
 
 
-def _summary(scenario: Scenario, options: PlanOptions, forecast: Any, problem: Any,
-             result: Any, plan: pd.DataFrame, costs: pd.DataFrame) -> dict[str, Any]:
+def _summary(scenario: Scenario, options: PlanOptions, forecast: ForecastResult,
+             problem: PlanningProblem, result: PlanResult, plan: pd.DataFrame,
+             costs: pd.DataFrame) -> dict[str, Any]:
     target = scenario.max_dry_probability
     dry = np.asarray(result.dry_probability, dtype=float)
     per_terminal = []
@@ -561,8 +571,8 @@ class ForecastRun:
     """
 
     scenario: Scenario
-    clean: Any
-    forecast: Any
+    clean: CleanHistory
+    forecast: ForecastResult
     by_model: pd.DataFrame
     champions: pd.DataFrame
     run_folder: Path | None = None
@@ -681,7 +691,7 @@ def _subset(scenario: Scenario, terminal_ids: list[str]) -> Scenario:
 
 def run_backtest(source: str | Path | Scenario, out_dir: str | Path, *, weeks: int,
                  options: PlanOptions | None = None, past_visits: str | Path | None = None,
-                 progress: Any = None) -> Any:
+                 progress: Callable[[str], None] | None = None) -> BacktestResult:
     """Replay the last ``weeks`` weeks (planner, baseline routines, perfect-foresight bound)
     and write the backtest tables and chart to a run folder."""
     from planner.evaluate.replay import backtest_scenario, write_backtest
@@ -699,7 +709,7 @@ def run_backtest(source: str | Path | Scenario, out_dir: str | Path, *, weeks: i
 def run_compare(source: str | Path | Scenario, out_dir: str | Path, *,
                 sets: list[str] | tuple[str, ...] = (),
                 files: list[str | Path] | tuple[str | Path, ...] = (),
-                options: PlanOptions | None = None) -> Any:
+                options: PlanOptions | None = None) -> CompareResult:
     """Re-plan what-if variants on the base's demand paths, price all on common out-of-sample
     paths, and write the comparison tables and chart to a run folder."""
     from planner.compare import compare_scenario, parse_variants, write_compare
