@@ -3,7 +3,7 @@
     python bench/bench_schedule.py                     # 1,000 and 2,000 terminals, 500 paths
     python bench/bench_schedule.py --sizes 200 --jobs 1
 
-Each network: synthetic lognormal weekday demand (``planner.optimize.synthetic``), horizon 14
+Each network: synthetic lognormal weekday demand (``planner.demo.synthetic``), horizon 14
 days + the planner's tail (28 days for a 14-day horizon), 200 terminals per depot (5 depots for 1,000 terminals, 10 for 2,000), crews
 per depot and day at ``--crew-share`` of its terminals so that the crew limits bind. For the
 first size the plan is also solved with crews ten times as many, to show what the limits cost.
@@ -23,7 +23,7 @@ sys.path.insert(0, os.path.join(os.path.dirname(__file__), os.pardir))
 
 from planner.executor import LocalExecutor  # noqa: E402
 from planner.optimize.schedule import solve_plan  # noqa: E402
-from planner.optimize.synthetic import synthetic_problem  # noqa: E402
+from planner.demo.synthetic import synthetic_problem  # noqa: E402
 from planner.pipeline import PlanOptions  # noqa: E402
 
 

@@ -142,7 +142,7 @@ def test_a_plan_on_a_dask_cluster_equals_the_plan_in_this_process(tiny_dir):
     """The whole run on a 2-worker local cluster: the forecast per terminal and the schedule
     per depot give the same plan, byte for byte, as in this process."""
     from planner.optimize.schedule import solve_plan
-    from planner.optimize.synthetic import synthetic_problem
+    from planner.demo.synthetic import synthetic_problem
     from planner.pipeline import plan_scenario
 
     problem = synthetic_problem(terminals=60, depots=3, horizon_days=7, tail_days=7, paths=40,

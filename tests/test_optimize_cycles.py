@@ -19,7 +19,7 @@ from scipy.sparse.csgraph import shortest_path
 from planner.costs import cycle_dry_counts, simulate
 from planner.optimize.cycles import cycle_candidates
 from planner.optimize.problem import service_rule
-from planner.optimize.synthetic import synthetic_problem
+from planner.demo.synthetic import synthetic_problem
 from planner.optimize.terminal import backward_values, cycle_structure, shortest_plans
 
 

@@ -15,7 +15,7 @@ from planner.costs import cycle_dry_counts, cycle_dry_shares
 from planner.optimize.problem import (PlanningProblem, evaluate_plan, service_rule,
                                       target_dry_paths)
 from plain import meets_target
-from planner.optimize.synthetic import crew_feasible_optimum, synthetic_problem
+from planner.demo.synthetic import crew_feasible_optimum, synthetic_problem
 
 
 def tiny_problem(seed: int, *, terminals: int = 2, days: int = 5, horizon: int = 4,

@@ -26,7 +26,7 @@ from planner.optimize.monolithic import solve_monolithic
 from planner.costs import cycle_dry_counts
 from plain import meets_target
 from planner.optimize.problem import PlanningProblem, evaluate_plan, service_rule
-from planner.optimize.synthetic import crew_feasible_optimum
+from planner.demo.synthetic import crew_feasible_optimum
 
 REL = 1e-6          # agreement asked of the decomposition and the reference model
 

@@ -8,7 +8,7 @@ from dataclasses import replace
 import pytest
 
 from planner.optimize import solve_plan
-from planner.optimize.synthetic import synthetic_problem
+from planner.demo.synthetic import synthetic_problem
 from plain import expected_cost_plain, missed_terminals
 
 

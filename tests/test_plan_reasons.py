@@ -10,7 +10,7 @@ import pytest
 from planner.optimize import solve_plan
 from planner.optimize.frames import LOAD_STOPS, plan_frame
 from planner.optimize.problem import WEEKDAY_NAMES, target_dry_paths
-from planner.optimize.synthetic import synthetic_problem
+from planner.demo.synthetic import synthetic_problem
 from planner.pipeline import PlanOptions, run_plan
 from plain import expected_cost_plain
 

@@ -16,7 +16,7 @@ from pathlib import Path
 import pytest
 
 from planner.report.html import render_report
-from planner.report.sample import sample_run
+from planner.demo.report_preview import sample_run
 
 BROWSERS = ("chromium", "chromium-browser", "google-chrome", "google-chrome-stable")
 CHROMIUM = next((p for p in map(shutil.which, BROWSERS) if p), None)

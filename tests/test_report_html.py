@@ -1,6 +1,6 @@
 """report.html: sections, self-containment, size, colours, escaping, optional sections.
 
-The run is the invented preview network of :mod:`planner.report.sample` (real scenario
+The run is the invented preview network of :mod:`planner.demo.report_preview` (real scenario
 loader, cleaning, planning problem and accounting; invented forecasts and a greedy plan).
 """
 from __future__ import annotations
@@ -18,7 +18,7 @@ from matplotlib.colors import to_hex
 
 from planner.report import charts, palette
 from planner.report.html import render_report, write_report
-from planner.report.sample import sample_run
+from planner.demo.report_preview import sample_run
 from planner.report.wording import CAUTIONS
 from planner.runfolder import RunFolderWriter
 

@@ -11,7 +11,7 @@ import openpyxl
 import pandas as pd
 import pytest
 
-from planner.report.sample import sample_run
+from planner.demo.report_preview import sample_run
 from planner.report.xlsx import (DATE_FORMAT, PERCENT_FORMAT, PLAN_COLUMNS, SUMMARY_SHEET,
                                  plan_workbook, write_plan_xlsx)
 from planner.report.wording import CAUTIONS

@@ -14,8 +14,9 @@
 - :mod:`planner.optimize.topup` — the top-up mode.
 - :mod:`planner.optimize.milp` — the small array model layer (HiGHS, PuLP/CBC).
 - :mod:`planner.optimize.frames` — :func:`plan_frame` and :func:`orders_frame` for the run folder.
-- :mod:`planner.optimize.synthetic` — an invented network for tests and benchmarks.
 - :mod:`planner.optimize.monolithic` — the reference MILP for small instances.
+
+Invented problems for tests and benchmarks: :mod:`planner.demo.synthetic`.
 """
 from __future__ import annotations
 

@@ -1,6 +1,6 @@
 """An invented planning run with every documented frame, to preview the report and test it.
 
-``python -m planner.report.sample OUT_DIR [--terminals N]`` writes ``report.html`` and
+``python -m planner.demo.report_preview OUT_DIR [--terminals N]`` writes ``report.html`` and
 ``plan.xlsx`` of an invented network (Kestrel Valley Bank, invented towns) in seconds, without
 fitting forecasts or running the solver: the history is drawn from a weekly profile with
 injected dry days, outages, gaps and outliers; the demand paths are lognormal with AR(1) noise;
@@ -222,7 +222,7 @@ def sample_run(folder: Path, *, terminals: int = 6, seed: int = 7, horizon_days:
 
 
 def main(argv: list[str] | None = None) -> int:
-    """Write a preview run folder: ``python -m planner.report.sample OUT [--terminals N]``."""
+    """Write a preview run folder: ``python -m planner.demo.report_preview OUT [--terminals N]``."""
     import argparse
 
     from planner.report import write_plan_xlsx, write_report
