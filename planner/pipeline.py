@@ -695,7 +695,7 @@ def run_backtest(source: str | Path | Scenario, out_dir: str | Path, *, weeks: i
     """Replay the last ``weeks`` weeks (planner, baseline routines, perfect-foresight bound)
     and write the backtest tables and chart to a run folder."""
     from planner.evaluate.replay import backtest_scenario, write_backtest
-    from planner.evaluate.baselines import read_past_visits
+    from planner.scenario import read_past_visits
 
     with open_run_folder(out_dir, source) as writer:
         scenario = source if isinstance(source, Scenario) else load_scenario(source)

@@ -1222,17 +1222,54 @@ def _check_outlying_dates(table, dates: pd.Series, problems: list[Problem]) -> N
                    "correct the date (a mistyped year?), or remove the row")
 
 
+VISIT_COLUMNS = ["terminal_id", "date", "load"]   # committed.csv and the replay's past visits
+
+
 def _read_committed(root: Path, terminals: pd.DataFrame, start: pd.Timestamp, horizon: int,
                     notices: list[str], lock_days: int = 0) -> pd.DataFrame:
     file = "committed.csv"
-    table = _read_csv(root, file, ["terminal_id", "date", "load"], [], notices,
-                      optional_file=True)
+    table = _read_csv(root, file, VISIT_COLUMNS, [], notices, optional_file=True)
     if table is None or (table.frame.empty and not table.problems):
         return pd.DataFrame({"terminal_id": pd.Series([], dtype="str"),
                              "date": pd.Series([], dtype=DATE_UNIT),
                              "load": pd.Series([], dtype=float)})
     frame = table.frame
     problems = list(table.problems)
+    dates, load = _visit_rows(table, terminals, problems, notices)
+    end = start + pd.Timedelta(days=horizon)
+    outside = dates.notna() & ((dates < start) | (dates >= end))
+    table.flag(problems, outside, "date",
+               lambda i: f"visit on {dates.iloc[i]:%Y-%m-%d} lies outside the horizon "
+                         f"{start:%Y-%m-%d} … {end - pd.Timedelta(days=1):%Y-%m-%d}",
+               "remove the row, or change start_date or horizon_days in scenario.toml")
+    _raise_if(problems)
+    known = terminals.reindex(frame["terminal_id"])
+    weekday = dates.dt.day_of_week.to_numpy()
+    off_day = [not known["allowed_weekdays"].iloc[i][weekday[i]] for i in range(len(frame))]
+    for i in np.flatnonzero(off_day)[:MAX_ROWS_PER_CHECK]:
+        notices.append(f"{file}: line {table.line(i)}: {frame['terminal_id'].iloc[i]} is "
+                       f"visited on a {WEEKDAYS[weekday[i]]}, outside its visit_days; kept "
+                       "as ordered")
+    # a committed visit after the lock days is kept too (the plan is built around it)
+    late = np.flatnonzero((dates >= start + pd.Timedelta(days=lock_days)).to_numpy())
+    for i in late[:MAX_ROWS_PER_CHECK]:
+        notices.append(f"{file}: line {table.line(i)}: {frame['terminal_id'].iloc[i]} on "
+                       f"{dates.iloc[i]:%Y-%m-%d} lies after the {lock_days} lock day"
+                       f"{'' if lock_days == 1 else 's'}; kept as ordered, and the plan is "
+                       "built around it (remove the row to let the planner choose that visit)")
+    if len(late) > MAX_ROWS_PER_CHECK:
+        notices.append(f"{file}: {len(late) - MAX_ROWS_PER_CHECK} more committed visits lie "
+                       "after the lock days; kept as ordered")
+    out = pd.DataFrame({"terminal_id": frame["terminal_id"], "date": dates, "load": load})
+    return out.sort_values(["terminal_id", "date"], ignore_index=True, kind="stable")
+
+
+def _visit_rows(table: _Table, terminals: pd.DataFrame, problems: list[Problem],
+                notices: list[str]) -> tuple[pd.Series, np.ndarray]:
+    """The checks every file of visits shares (committed.csv, the visits actually made that
+    the replay prices): a known terminal, a date, a load ≥ 0 in whole bundles and within the
+    limit, one row per terminal and day. Returns the dates and the loads."""
+    frame = table.frame
     table.flag(problems, frame["terminal_id"] == "", "terminal_id", "terminal_id is empty",
                "write the terminal's id as in terminals.csv")
     unknown = _check_known(table, "terminal_id", terminals.index, "terminals.csv", "terminal",
@@ -1253,31 +1290,31 @@ def _read_committed(root: Path, terminals: pd.DataFrame, start: pd.Timestamp, ho
                lambda i: f"load {frame['load'].iloc[i]} for {frame['terminal_id'].iloc[i]} is "
                          f"above its limit {limit[i]:g} (min of capacity and insurance limit, "
                          "in whole bundles)", lambda i: f"lower the load to {limit[i]:g} or less")
-    end = start + pd.Timedelta(days=horizon)
-    outside = dates.notna() & ((dates < start) | (dates >= end))
-    table.flag(problems, outside, "date",
-               lambda i: f"visit on {dates.iloc[i]:%Y-%m-%d} lies outside the horizon "
-                         f"{start:%Y-%m-%d} … {end - pd.Timedelta(days=1):%Y-%m-%d}",
-               "remove the row, or change start_date or horizon_days in scenario.toml")
     _check_duplicate_days(table, dates, problems)
+    return dates, load
+
+
+def read_past_visits(path: str | Path, terminals: pd.DataFrame) -> pd.DataFrame:
+    """Read a CSV of the visits actually made, ``terminal_id, date, load`` (one row per
+    visit; the replay's ``--past-visits``), with the reader and the checks of committed.csv
+    (:func:`_visit_rows`); any date.
+
+    ``terminals`` is the scenario's terminal frame (ids, bundles, limits). Returns a frame with
+    ``terminal_id`` (str), ``date`` (datetime64) and ``load`` (float), sorted. Raises
+    :class:`~planner.errors.InputError` naming the line and column of every bad cell.
+    """
+    path = Path(path)
+    if not path.is_file():
+        raise InputError(Problem(str(path), "file of past visits not found",
+                                 "give the path of a CSV with columns terminal_id, date, load"))
+    notices: list[str] = []
+    table = _read_csv(path.parent, path.name, VISIT_COLUMNS, [], notices)
+    problems = list(table.problems)
+    _raise_if(problems)          # a file without its columns: say so before the rows
+    dates, load = _visit_rows(table, terminals, problems, notices)
     _raise_if(problems)
-    weekday = dates.dt.day_of_week.to_numpy()
-    off_day = [not known["allowed_weekdays"].iloc[i][weekday[i]] for i in range(len(frame))]
-    for i in np.flatnonzero(off_day)[:MAX_ROWS_PER_CHECK]:
-        notices.append(f"{file}: line {table.line(i)}: {frame['terminal_id'].iloc[i]} is "
-                       f"visited on a {WEEKDAYS[weekday[i]]}, outside its visit_days; kept "
-                       "as ordered")
-    # a committed visit after the lock days is kept too (the plan is built around it)
-    late = np.flatnonzero((dates >= start + pd.Timedelta(days=lock_days)).to_numpy())
-    for i in late[:MAX_ROWS_PER_CHECK]:
-        notices.append(f"{file}: line {table.line(i)}: {frame['terminal_id'].iloc[i]} on "
-                       f"{dates.iloc[i]:%Y-%m-%d} lies after the {lock_days} lock day"
-                       f"{'' if lock_days == 1 else 's'}; kept as ordered, and the plan is "
-                       "built around it (remove the row to let the planner choose that visit)")
-    if len(late) > MAX_ROWS_PER_CHECK:
-        notices.append(f"{file}: {len(late) - MAX_ROWS_PER_CHECK} more committed visits lie "
-                       "after the lock days; kept as ordered")
-    out = pd.DataFrame({"terminal_id": frame["terminal_id"], "date": dates, "load": load})
+    out = pd.DataFrame({"terminal_id": table.frame["terminal_id"], "date": dates,
+                        "load": load})
     return out.sort_values(["terminal_id", "date"], ignore_index=True, kind="stable")
 
 

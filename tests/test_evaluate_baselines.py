@@ -8,8 +8,9 @@ import pytest
 
 from planner.costs import CostRates
 from planner.errors import InputError
+from planner.scenario import read_past_visits
 from planner.evaluate.baselines import (crew_overruns, days_of_cover, fixed_weekdays,
-                                        past_visits, read_past_visits, trailing_weekday_mean)
+                                        past_visits, trailing_weekday_mean)
 from planner.optimize.problem import PlanningProblem
 
 RATES = CostRates(carry_rate_daily=0.05 / 365, handling_per_1000=0.8, dry_day_penalty=600.0)
@@ -124,15 +125,19 @@ def test_past_visits_bad_rows_are_named(tmp_path):
     terminals = pd.DataFrame({"bundle": [1000.0], "limit": [20000.0]},
                              index=pd.Index(["ASH-001"], name="terminal_id"))
     path = tmp_path / "visits.csv"
-    path.write_text("terminal_id,date,load\nASH-009,2026-12-08,1000\nASH-001,08.12.2026,1000\n"
+    path.write_text("terminal_id,date,load\nASH-009,2026-12-08,1000\nASH-001,2026-13-08,1000\n"
                     "ASH-001,2026-12-09,1500\nASH-001,2026-12-10,25000\n")
     with pytest.raises(InputError) as info:
         read_past_visits(path, terminals)
-    text = str(info.value)
-    assert "line 2" in text and "'ASH-009' is not in terminals.csv" in text
-    assert "line 3" in text and "does not parse" in text
-    assert "line 4" in text and "multiple of its bundle" in text
-    assert "line 5" in text and "above its limit" in text
+    found = {(p.line, p.column): p.problem for p in info.value.problems}
+    assert "is not in terminals.csv" in found[(2, "terminal_id")]
+    assert "did you mean 'ASH-001'" in str(info.value)
+    assert (3, "date") in found
+    assert "multiple of its bundle" in found[(4, "load")]
+    assert "above its limit" in found[(5, "load")]
+    path.write_text("terminal_id,date,load\nASH-001,2026-12-08,1000\nASH-001,2026-12-08,2000\n")
+    with pytest.raises(InputError, match="second row for 2026-12-08"):
+        read_past_visits(path, terminals)
     path.write_text("terminal_id,day,load\n")
     with pytest.raises(InputError, match="required column 'date'"):
         read_past_visits(path, terminals)

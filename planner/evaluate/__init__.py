@@ -10,13 +10,13 @@
 from __future__ import annotations
 
 from planner.evaluate.baselines import (crew_overruns, days_of_cover, fixed_weekdays,
-                                        past_visits, read_past_visits, trailing_weekday_mean)
+                                        past_visits, trailing_weekday_mean)
 from planner.evaluate.bound import PerfectForesight, perfect_foresight
 from planner.evaluate.simulate import (OutOfSampleCheck, check_plan, fresh_seed,
                                        out_of_sample_check, plan_ledger)
 
 __all__ = ["OutOfSampleCheck", "check_plan", "fresh_seed", "out_of_sample_check", "plan_ledger",
-           "fixed_weekdays", "days_of_cover", "past_visits", "read_past_visits",
+           "fixed_weekdays", "days_of_cover", "past_visits",
            "crew_overruns", "trailing_weekday_mean", "PerfectForesight", "perfect_foresight",
            "BacktestResult", "backtest_scenario", "write_backtest"]
 

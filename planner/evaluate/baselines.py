@@ -18,12 +18,9 @@ routine uses in practice. They project the expected balance forward with that es
 """
 from __future__ import annotations
 
-from pathlib import Path
-
 import numpy as np
 import pandas as pd
 
-from planner.errors import InputError, Problem
 from planner.scenario import WEEKDAYS
 
 
@@ -151,7 +148,7 @@ def days_of_cover(problem, *, trigger_days: float = DEFAULT_TRIGGER_DAYS,
 
 def past_visits(problem, visits: pd.DataFrame) -> tuple[np.ndarray, np.ndarray]:
     """The user's own visits (frame ``terminal_id, date, load`` as read by
-    :func:`read_past_visits`) on the problem's days, priced as they were done.
+    :func:`planner.scenario.read_past_visits`) on the problem's days, priced as they were done.
 
     Rows for other terminals or days are ignored; committed visits of the problem are kept.
     The recorded visits are taken as they were — also on days outside the terminal's visit
@@ -170,71 +167,6 @@ def past_visits(problem, visits: pd.DataFrame) -> tuple[np.ndarray, np.ndarray]:
         out_visits[i, j] = True
         out_loads[i, j] = float(load)
     return out_visits, out_loads
-
-
-def read_past_visits(path: str | Path, terminals: pd.DataFrame) -> pd.DataFrame:
-    """Read a CSV of past visits ``terminal_id, date, load`` (one row per visit).
-
-    ``terminals`` is the scenario's terminal frame (for ids, bundles and limits). Returns a frame
-    with ``terminal_id`` (str), ``date`` (datetime64), ``load`` (float). Raises
-    :class:`~planner.errors.InputError` naming the line and column of every bad cell: unknown
-    terminal, unparsable date or amount, negative load, load not in whole bundles or above the
-    terminal's limit, two visits of one terminal on one day.
-    """
-    path = Path(path)
-    file = path.name
-    if not path.is_file():
-        raise InputError(Problem(str(path), "file of past visits not found",
-                                 "give the path of a CSV with columns terminal_id, date, load"))
-    try:
-        frame = pd.read_csv(path, dtype=str, keep_default_na=False, skipinitialspace=True,
-                            encoding="utf-8-sig")
-    except (pd.errors.ParserError, UnicodeDecodeError) as exc:
-        raise InputError(Problem(file, f"the file is not readable CSV: {exc}",
-                                 "save it as UTF-8 CSV with comma separators")) from None
-    frame.columns = [str(c).strip() for c in frame.columns]
-    missing = [c for c in ("terminal_id", "date", "load") if c not in frame.columns]
-    if missing:
-        raise InputError([Problem(file, f"required column '{c}' is missing",
-                                  f"add a column '{c}'", line=1, column=c) for c in missing])
-    problems: list[Problem] = []
-    ids = frame["terminal_id"].str.strip()
-    dates = pd.to_datetime(frame["date"].str.strip(), format="%Y-%m-%d", errors="coerce")
-    loads = pd.to_numeric(frame["load"].str.strip(), errors="coerce")
-    for i in range(len(frame)):
-        line = i + 2
-        tid = ids.iloc[i]
-        if tid not in terminals.index:
-            problems.append(Problem(file, f"terminal {tid!r} is not in terminals.csv",
-                                    "correct the id or remove the row", line=line,
-                                    column="terminal_id"))
-        if pd.isna(dates.iloc[i]):
-            problems.append(Problem(file, f"date {frame['date'].iloc[i]!r} does not parse",
-                                    "write dates as YYYY-MM-DD", line=line, column="date"))
-        v = loads.iloc[i]
-        if pd.isna(v) or not np.isfinite(v) or v < 0:
-            problems.append(Problem(file, f"load {frame['load'].iloc[i]!r} is not an amount "
-                                          "≥ 0", "write a plain number such as 40000",
-                                    line=line, column="load"))
-        elif tid in terminals.index:
-            b, lim = terminals.at[tid, "bundle"], terminals.at[tid, "limit"]
-            if abs(v / b - round(v / b)) > 1e-9:
-                problems.append(Problem(file, f"load {v:g} for {tid!r} is not a multiple of its "
-                                              f"bundle {b:g}", f"round it to a multiple of {b:g}",
-                                        line=line, column="load"))
-            elif v > lim + 1e-9:
-                problems.append(Problem(file, f"load {v:g} for {tid!r} is above its limit "
-                                              f"{lim:g}", "lower the load", line=line,
-                                        column="load"))
-    twice = pd.DataFrame({"t": ids, "d": dates}).duplicated() & dates.notna()
-    for i in np.flatnonzero(twice.to_numpy()):
-        problems.append(Problem(file, f"terminal {ids.iloc[i]!r} has a second visit on "
-                                      f"{dates.iloc[i]:%Y-%m-%d}", "keep one row per visit",
-                                line=i + 2, column="date"))
-    if problems:
-        raise InputError(problems)
-    return pd.DataFrame({"terminal_id": ids.to_numpy(), "date": dates.to_numpy(),
-                         "load": loads.to_numpy(dtype=float)})
 
 
 def crew_overruns(problem, visits: np.ndarray) -> pd.DataFrame:

@@ -240,7 +240,7 @@ def backtest_scenario(scenario, weeks: int, *, options=None,
     ``options``: a :class:`planner.options.PlanOptions` (horizon, paths, seed, time limit,
     tail days, forecast origins, and the executor settings unless ``executor`` is given). ``baselines``: name → routine (default
     :func:`default_baselines`). ``past_visits``: the user's recorded visits (frame of
-    :func:`planner.evaluate.baselines.read_past_visits`), replayed as one more baseline.
+    :func:`planner.scenario.read_past_visits`), replayed as one more baseline.
     ``naive_forecast``: also run the planner on paths of the weekly seasonal naive model (the
     value of a better forecast, measured on the realised demand). ``progress(text)`` is called
     once per week.
