@@ -3,7 +3,6 @@ backtest of the tiny scenario (every figure from the one accounting; the bound b
 policy)."""
 from __future__ import annotations
 
-from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -12,8 +11,8 @@ import pytest
 from planner.runfolder import MARKER
 from planner.costs import CostRates
 from planner.evaluate.replay import execute_days, realised_demand
+from conftest import TINY
 
-TINY = Path(__file__).resolve().parents[1] / "scenarios" / "tiny"
 RATES = CostRates(carry_rate_daily=0.01, handling_per_1000=1.0, dry_day_penalty=100.0)
 
 

@@ -8,7 +8,7 @@ from planner.forecast.scoring import (BACKTEST_LEVELS, accuracy, backtest_model,
                                        champion_reason, mase_scale, origin_days, pinball,
                                        rank_models)
 from planner.forecast.models import HoltWinters, RegressionARIMA, SeasonalNaive
-from tests.test_forecast_models import weekly_ar1
+from test_forecast_models import weekly_ar1
 
 
 def test_origin_days_are_weekly_and_leave_the_test_window():

@@ -14,7 +14,7 @@ from planner.demo.synthetic import synthetic_problem
 from planner.pipeline import PlanOptions, run_plan
 from plain import expected_cost_plain
 
-from test_pipeline import TINY
+from conftest import TINY
 
 
 def _day(date) -> str:

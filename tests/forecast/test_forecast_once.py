@@ -2,15 +2,14 @@
 demand paths from the fitted models of the run's forecasting stage (planner.forecast.stage)."""
 from __future__ import annotations
 
-from pathlib import Path
 
 import numpy as np
 import pytest
 
 import planner.forecast.stage as stage
 from planner.scenario import load_scenario
+from conftest import TINY
 
-TINY = Path(__file__).resolve().parents[1] / "scenarios" / "tiny"
 
 
 @pytest.fixture

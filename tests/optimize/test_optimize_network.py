@@ -284,7 +284,7 @@ def test_plan_and_orders_frames_describe_the_plan():
     committed = plan["load_stop"] == "committed"
     assert committed.sum() == int(problem.committed[:, :horizon].sum())
     assert plan.loc[committed, "reason"].str.startswith("committed load").all()
-    # (every word of the reasons is checked in tests/test_plan_reasons.py)
+    # (every word of the reasons is checked in tests/optimize/test_plan_reasons.py)
     assert ((plan["dry_probability"] >= 0) & (plan["dry_probability"] <= 1)).all()
     orders = orders_frame(problem, result)
     assert len(orders) == len(problem.depots) * horizon

@@ -2,7 +2,6 @@
 from __future__ import annotations
 
 from dataclasses import replace
-from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -14,8 +13,8 @@ from planner.executor import LocalExecutor
 from planner.forecast import ForecastResult, NetworkProfile, forecast_scenario
 from planner.forecast.profile import network_profile
 from planner.scenario import load_scenario
+from conftest import TINY
 
-TINY = Path(__file__).resolve().parents[1] / "scenarios" / "tiny"
 
 
 @pytest.fixture(scope="module")
