@@ -19,7 +19,8 @@ Overrides are written ``KEY=VALUE``:
   of ``capacity, insurance_limit, bundle, balance_now, visit_days, visit_fee``; ``*`` in place of
   a depot or terminal id means all of them;
 - values: a plain value (``0.06``, ``topup``, ``Mon|Thu``) replaces the setting; a value with a
-  sign changes it: ``+15%`` / ``-10%`` relative, ``+20`` / ``-0.01`` by that amount.
+  sign changes it: ``+15%`` / ``-10%`` relative, ``+20`` / ``-0.01`` by that amount. A changed
+  setting of scenario.toml passes that file's own checks (:func:`apply_overrides`).
 
 A variant file is TOML with the same keys as ``scenario.toml`` (tables ``[costs]``,
 ``[service]``, ``[planning]``) plus ``[depots.<depot>]`` and ``[terminals."<id>"]``; its optional
@@ -46,7 +47,7 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from planner.costs import MODES, period_slices
+from planner.costs import period_slices
 from planner.errors import InputError, Problem
 from planner.executor import Executor
 from planner.runfolder import rounded
@@ -237,18 +238,20 @@ def _bad(o: Override, what: str, fix: str) -> Problem:
 def apply_overrides(scenario, overrides) -> Any:
     """The scenario with the overrides applied (``dataclasses.replace``; the base is unchanged).
 
-    Raises :class:`~planner.errors.InputError` listing every unknown key (with the closest
-    known one) and every bad value (negative fee, rate outside [0, 1), probability outside
-    (0, 1), balance above capacity, unknown weekday …).
+    Settings (``costs.*``, ``service.*``, ``planning.*``) are written into the scenario's
+    settings as scenario.toml data and pass the file's own checks
+    (:func:`planner.scenario.settings.check_settings`), each problem naming the override it
+    came from. Raises :class:`~planner.errors.InputError` listing every unknown key (with the
+    closest known one) and every bad value (negative fee, rate outside [0, 1), probability
+    outside (0, 1), balance above capacity, unknown weekday …).
     """
+    from planner.scenario.settings import SETTINGS_FILE, check_settings, settings_data
+
     problems: list[Problem] = []
-    costs = scenario.costs
-    cost_changes: dict[str, Any] = {}
-    by_weekday = dict(costs.visit_fee_by_weekday)
-    top: dict[str, Any] = {}
+    data = settings_data(scenario)
+    sources: dict[str, str] = {}
     terminals = scenario.terminals.copy()
     depots = scenario.depots.copy()
-    horizon = int(scenario.horizon_days)
 
     for o in overrides:
         parts = o.key.split(".")
@@ -264,50 +267,16 @@ def apply_overrides(scenario, overrides) -> Any:
                                     "plan that scenario separately and compare the run folders"))
             continue
         if head == "costs" and len(parts) == 3 and parts[1] == "visit_fee_by_weekday":
-            day = parts[2]
-            if day not in WEEKDAYS:
-                problems.append(_unknown(o, "weekday", day, WEEKDAYS,
-                                         "costs.visit_fee_by_weekday.Sat=200"))
-                continue
-            w = WEEKDAYS.index(day)
-            value = _number(o, by_weekday.get(w, cost_changes.get("visit_fee", costs.visit_fee)))
-            if value is None or not math.isfinite(value) or value < 0:
-                problems.append(_bad(o, "must be a fee ≥ 0", "write e.g. =200 or =+10%"))
-                continue
-            by_weekday[w] = value
+            fees = data["costs"]["visit_fee_by_weekday"]
+            fees[parts[2]] = _value(o, fees.get(parts[2], data["costs"]["visit_fee"]))
+            sources[f"costs.visit_fee_by_weekday.{parts[2]}"] = o.source
         elif o.key in SIMPLE_KEYS:
-            name = parts[1]
-            if name == "replenishment":
-                if o.value not in MODES:
-                    problems.append(_bad(o, "must be swap or topup", "write =swap or =topup"))
-                    continue
-                top["replenishment"] = o.value
-            elif name == "lock_days":
-                value = _number(o, float(scenario.lock_days))
-                if value is None or value != int(value) or not 0 <= value <= horizon:
-                    problems.append(_bad(o, f"must be a whole number of days in 0 … {horizon}",
-                                         "write e.g. =1"))
-                    continue
-                top["lock_days"] = int(value)
-            elif name == "max_dry_probability":
-                value = _number(o, float(top.get("max_dry_probability",
-                                                 scenario.max_dry_probability)))
-                if value is None or not 0 < value < 1:
-                    problems.append(_bad(o, "must be a probability in (0, 1)",
-                                         "write e.g. =0.01 for 1 %"))
-                    continue
-                top["max_dry_probability"] = value
-            else:
-                value = _number(o, float(cost_changes.get(name, getattr(costs, name))))
-                if name == "carry_rate_annual":
-                    if value is None or not 0 <= value < 1:
-                        problems.append(_bad(o, "must be a rate in [0, 1)",
-                                             "write the rate as a fraction, e.g. =0.06"))
-                        continue
-                elif value is None or not math.isfinite(value) or value < 0:
-                    problems.append(_bad(o, "must be an amount ≥ 0", "write e.g. =140 or =+15%"))
-                    continue
-                cost_changes[name] = value
+            table, name = parts
+            value = _value(o, data[table][name])
+            if name == "lock_days" and isinstance(value, float) and value.is_integer():
+                value = int(value)
+            data[table][name] = value
+            sources[o.key] = o.source
         elif head == "depots":
             _apply_depot(o, parts, depots, problems)
         elif head == "terminals":
@@ -320,14 +289,32 @@ def apply_overrides(scenario, overrides) -> Any:
             problems.append(Problem(o.source, f"unknown setting '{o.key}'",
                                     (f"did you mean '{near}'?" if near else
                                      "use one of: " + ", ".join(known))))
+    top: dict[str, Any] = {}
+    if sources:
+        try:
+            values = check_settings(data, SETTINGS_FILE, sources=sources)
+        except InputError as exc:
+            problems.extend(exc.problems)
+        else:
+            top = {"costs": values["costs"], "replenishment": values["planning.replenishment"],
+                   "lock_days": values["planning.lock_days"],
+                   "max_dry_probability": float(values["service.max_dry_probability"])}
     if problems:
         raise InputError(problems)
-    if cost_changes or by_weekday != costs.visit_fee_by_weekday:
-        top["costs"] = replace(costs, **cost_changes, visit_fee_by_weekday=by_weekday)
     terminals = _derived_terminal_columns(terminals, overrides, problems)
     if problems:
         raise InputError(problems)
     return replace(scenario, terminals=terminals, depots=depots.astype(int), **top)
+
+
+def _value(o: Override, old: Any) -> Any:
+    """What an override writes over ``old``: the changed number, or its value as written
+    (then the settings' checks judge it)."""
+    if isinstance(old, (int, float)) and not isinstance(old, bool):
+        number = _number(o, float(old))
+        if number is not None:
+            return number
+    return o.value if o.change == "set" else str(o).partition("=")[2]
 
 
 def _targets(o: Override, word: str, index, what: str, example: str,

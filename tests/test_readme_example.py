@@ -12,7 +12,8 @@ import pandas as pd
 import pytest
 
 from planner.pipeline import PlanOptions, plan_scenario
-from planner.scenario import _SETTINGS, WEEKDAYS, load_scenario
+from planner.scenario import WEEKDAYS, load_scenario
+from planner.scenario.settings import _SETTINGS
 
 README = Path(__file__).resolve().parents[1] / "README.md"
 # a line that starts with a file's name, then (after its explanation) the file's block

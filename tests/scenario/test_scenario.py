@@ -790,3 +790,27 @@ def test_message_nits(tiny_dir):
         load_scenario(tiny_dir)
     assert "hash-of-a-password" not in str(info.value)
     assert "names none of the required columns" in str(info.value)
+
+
+def test_settings_data_is_the_inverse_of_the_settings_checks():
+    # what a what-if comparison writes into must read back as the scenario it came from
+    from planner.demo import demo_path
+    from planner.scenario.settings import _SETTINGS, check_settings, settings_data
+
+    for folder in (TINY, demo_path()):
+        sc = load_scenario(folder)
+        data = settings_data(sc)
+        values = check_settings(data, "scenario.toml")
+        assert values["costs"] == sc.costs and values["calendar"] == sc.calendar
+        assert values["start_date"] == sc.start_date
+        assert (values["planning.horizon_days"], values["planning.replenishment"],
+                values["planning.lock_days"], values["service.max_dry_probability"],
+                values["paths.count"], values["paths.seed"]) == (
+            sc.horizon_days, sc.replenishment, sc.lock_days, sc.max_dry_probability,
+            sc.path_count, sc.seed)
+        dotted = {f"{table}.{key}" if isinstance(sub, dict) else table
+                  for table, sub in data.items()
+                  for key in (sub if isinstance(sub, dict) else [None])}
+        optional = {"calendar.holidays", "calendar.subdivision"}   # absent when not set
+        assert set(_SETTINGS) - optional <= dotted
+        assert (sc.calendar.country is None) == ("calendar.holidays" not in dotted)
