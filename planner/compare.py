@@ -245,13 +245,17 @@ def apply_overrides(scenario, overrides) -> Any:
     closest known one) and every bad value (negative fee, rate outside [0, 1), probability
     outside (0, 1), balance above capacity, unknown weekday …).
     """
+    from planner.scenario.reader import cells_table
     from planner.scenario.settings import SETTINGS_FILE, check_settings, settings_data
+    from planner.scenario.tables import depot_cells, depots_from, terminal_cells, terminals_from
 
     problems: list[Problem] = []
     data = settings_data(scenario)
     sources: dict[str, str] = {}
-    terminals = scenario.terminals.copy()
-    depots = scenario.depots.copy()
+    # terminals and depots as the text cells of their files, changed cell by cell
+    terminal_text = terminal_cells(scenario.terminals).set_index("terminal_id", drop=False)
+    depot_text = depot_cells(scenario.depots).set_index("depot", drop=False)
+    table_sources: list[str] = []
 
     for o in overrides:
         parts = o.key.split(".")
@@ -278,9 +282,11 @@ def apply_overrides(scenario, overrides) -> Any:
             data[table][name] = value
             sources[o.key] = o.source
         elif head == "depots":
-            _apply_depot(o, parts, depots, problems)
+            _apply_depot(o, parts, depot_text, problems)
+            table_sources.append(o.source)
         elif head == "terminals":
-            _apply_terminal(o, parts, terminals, problems)
+            _apply_terminal(o, parts, terminal_text, problems)
+            table_sources.append(o.source)
         else:
             known = list(SIMPLE_KEYS) + ["costs.visit_fee_by_weekday.Sat",
                                          "depots.<depot>.max_visits_per_day",
@@ -301,10 +307,12 @@ def apply_overrides(scenario, overrides) -> Any:
                    "max_dry_probability": float(values["service.max_dry_probability"])}
     if problems:
         raise InputError(problems)
-    terminals = _derived_terminal_columns(terminals, overrides, problems)
-    if problems:
-        raise InputError(problems)
-    return replace(scenario, terminals=terminals, depots=depots.astype(int), **top)
+    if table_sources:    # changed rows pass the checks of depots.csv and terminals.csv
+        source = ", ".join(dict.fromkeys(table_sources))
+        depots = depots_from(cells_table(depot_text, source))
+        terminals = terminals_from(cells_table(terminal_text, source), depots, [])
+        top.update(terminals=terminals, depots=depots)
+    return replace(scenario, **top)
 
 
 def _value(o: Override, old: Any) -> Any:
@@ -340,6 +348,7 @@ def _row_and_column(o: Override, parts: list[str], index, what: str, example: st
 
 def _apply_depot(o: Override, parts: list[str], depots: pd.DataFrame,
                  problems: list[Problem]) -> None:
+    """Write a depot override into the depots' text cells (checked later as depots.csv)."""
     example = "depots.<depot>.max_visits_per_day=3"
     found = _row_and_column(o, parts, depots.index, "depot", example, problems)
     if found is None:
@@ -349,19 +358,16 @@ def _apply_depot(o: Override, parts: list[str], depots: pd.DataFrame,
         problems.append(_unknown(o, "depot column", column,
                                  ("max_visits_per_day",) + WEEKDAYS, example))
         return
-    cols = list(WEEKDAYS) if column == "max_visits_per_day" else [column]
+    # max_visits_per_day changes every weekday, each from its own number
     for name in names:
-        for col in cols:
-            value = _number(o, float(depots.at[name, col]))
-            if value is None or value < 0 or value != int(value):
-                problems.append(_bad(o, "must be a whole number of visits ≥ 0",
-                                     "write e.g. =3 or =+1"))
-                return
-            depots.at[name, col] = int(value)
+        for col in list(WEEKDAYS) if column == "max_visits_per_day" else [column]:
+            depots.at[name, col] = _cell_text(o, depots.at[name, col])
 
 
 def _apply_terminal(o: Override, parts: list[str], terminals: pd.DataFrame,
                     problems: list[Problem]) -> None:
+    """Write a terminal override into the terminals' text cells (checked later as
+    terminals.csv)."""
     example = "terminals.<id>.capacity=+20%"
     found = _row_and_column(o, parts, terminals.index, "terminal", example, problems)
     if found is None:
@@ -371,50 +377,24 @@ def _apply_terminal(o: Override, parts: list[str], terminals: pd.DataFrame,
         problems.append(_unknown(o, "terminal column", column, TERMINAL_COLUMNS, example))
         return
     for tid in ids:
-        if column == "visit_days":
-            days = [d.strip() for d in str(o.value).split("|") if d.strip()]
-            bad = [d for d in days if d not in WEEKDAYS]
-            if o.change != "set" or bad or not days:
-                near = _closest(bad[0], WEEKDAYS) if bad else None
-                problems.append(Problem(o.source, f"'{o.key}' must list weekdays like Mon|Thu, "
-                                                  f"got {o}",
-                                        "write e.g. =Mon|Wed|Fri"
-                                        + (f" (did you mean '{near}'?)" if near else "")))
-                return
-            terminals.at[tid, "visit_days"] = "|".join(days)
-            terminals.at[tid, "allowed_weekdays"] = tuple(d in days for d in WEEKDAYS)
-            continue
-        old = float(terminals.at[tid, column])
-        if math.isnan(old) and o.change != "set":
+        old = terminals.at[tid, column]
+        if column == "visit_fee" and old == "" and o.change != "set":
             problems.append(_bad(o, f"cannot be changed by an amount or share: {tid} has no "
                                     "own visit fee", "give the fee itself, e.g. =140"))
             return
-        value = _number(o, old)
-        strict = column in ("capacity", "insurance_limit", "bundle")
-        if value is None or not math.isfinite(value) or value < 0 or (strict and value <= 0):
-            problems.append(_bad(o, "must be an amount " + ("> 0" if strict else "≥ 0"),
-                                 "write e.g. =120000 or =+20%"))
-            return
-        terminals.at[tid, column] = value
+        terminals.at[tid, column] = (str(o.value) if column == "visit_days"
+                                     else _cell_text(o, old))
 
 
-def _derived_terminal_columns(terminals: pd.DataFrame, overrides,
-                              problems: list[Problem]) -> pd.DataFrame:
-    """Recompute ``limit`` and check balances after the terminal overrides."""
-    out = terminals.copy()
-    out["limit"] = np.floor(np.minimum(out["capacity"], out["insurance_limit"])
-                            / out["bundle"] + 1e-9) * out["bundle"]
-    source = next((o.source for o in overrides if o.key.startswith("terminals.")), "--set")
-    for tid in out.index[out["limit"] <= 0]:
-        problems.append(Problem(source, f"terminal {tid}: min(capacity, insurance_limit) is "
-                                        "below one bundle after the change",
-                                "raise the capacity or insurance limit, or lower the bundle"))
-    for tid in out.index[out["balance_now"] > out["capacity"]]:
-        problems.append(Problem(source, f"terminal {tid}: balance_now "
-                                        f"{out.at[tid, 'balance_now']:g} is above the capacity "
-                                        f"{out.at[tid, 'capacity']:g} after the change",
-                                "change the capacity or the balance together"))
-    return out
+def _cell_text(o: Override, old: str) -> str:
+    """The new text of a table cell (:func:`_value` on the cell's number, or on its text)."""
+    try:
+        new = _value(o, float(old))
+    except ValueError:
+        new = _value(o, old)
+    if isinstance(new, float):
+        return str(int(new)) if new.is_integer() else repr(new)
+    return str(new)
 
 
 # --------------------------------------------------------------------------------------------

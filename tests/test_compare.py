@@ -7,6 +7,7 @@ from dataclasses import replace
 from pathlib import Path
 
 import numpy as np
+import pandas as pd
 import pytest
 
 from planner.runfolder import MARKER
@@ -194,3 +195,27 @@ def test_comparison_run_folder_files(common, tmp_path):
     assert names == ["compare.csv", "compare.json", "compare.png", "compare_terminals.csv"]
     assert (tmp_path / "cmp" / "compare.png").read_bytes()[:4] == b"\x89PNG"
     assert result.summary["headline"][0].startswith("service.max_dry_probability=0.01")
+
+
+def test_changed_terminals_and_depots_pass_the_checks_of_their_files(tiny):
+    # a change of nothing gives back the scenario's own frames
+    same = apply_overrides(tiny, [parse_override("terminals.*.capacity=+0%"),
+                                  parse_override("depots.*.Sat=+0")])
+    pd.testing.assert_frame_equal(same.terminals, tiny.terminals)
+    pd.testing.assert_frame_equal(same.depots, tiny.depots)
+    # the problems are terminals.csv's and depots.csv's, naming the row and the override
+    with pytest.raises(InputError) as info:
+        apply_overrides(tiny, [parse_override("terminals.BRH-001.visit_fee=abc"),
+                               parse_override("depots.Brenholm.Sat=1.5"),
+                               parse_override("terminals.BRH-002.visit_days=Mon|Thurs")])
+    found = {(p.column, p.problem.split(":")[0]) for p in info.value.problems}
+    assert ("Sat", "Brenholm") in found      # depots are checked first, as when loading
+    text = str(info.value)
+    assert "crew limit 1.5 is not a whole number" in text
+    assert all(p.file == "--set" and p.line is None for p in info.value.problems)
+    with pytest.raises(InputError) as info:
+        apply_overrides(tiny, [parse_override("terminals.BRH-001.visit_fee=abc"),
+                               parse_override("terminals.BRH-002.visit_days=Mon|Thurs")])
+    text = str(info.value)
+    assert "BRH-001: visit fee 'abc' does not parse as a number" in text
+    assert "BRH-002: unknown weekday 'Thurs' in visit_days" in text

@@ -112,6 +112,7 @@ class _Table:
     decimal_comma: bool
     separator: str
     problems: tuple[Problem, ...] = ()
+    row_names: tuple[str, ...] | None = None   # rows named, not numbered (a changed table)
 
     def line(self, i: int) -> int:
         return int(self.lines[i])
@@ -121,15 +122,28 @@ class _Table:
         """Add one problem per flagged row (a count beyond MAX_ROWS_PER_CHECK rows)."""
         rows = np.flatnonzero(np.asarray(mask, dtype=bool))
         for i in rows[:MAX_ROWS_PER_CHECK]:
+            text = problem(i) if callable(problem) else problem
+            named = self.row_names is not None
             problems.append(Problem(
-                self.file, problem(i) if callable(problem) else problem,
-                fix(i) if callable(fix) else fix, line=self.line(i), column=column))
+                self.file, f"{self.row_names[i]}: {text}" if named else text,
+                fix(i) if callable(fix) else fix, line=None if named else self.line(i),
+                column=column))
         if len(rows) > MAX_ROWS_PER_CHECK:
             more = rows[MAX_ROWS_PER_CHECK:]
+            where = "" if self.row_names is not None else \
+                f" (lines {self.line(more[0])}–{self.line(more[-1])})"
             problems.append(Problem(
-                self.file, f"and {len(more)} more row(s) like these (lines "
-                           f"{self.line(more[0])}–{self.line(more[-1])})",
+                self.file, f"and {len(more)} more row(s) like these{where}",
                 "fix them the same way", column=column))
+
+
+def cells_table(frame: pd.DataFrame, source: str) -> _Table:
+    """A frame of text cells (one row per item, the id first) as a :class:`_Table` whose
+    problems name the row's item and ``source`` (where the changed cells came from), so that
+    changed rows pass the checks of the file they belong to."""
+    frame = frame.reset_index(drop=True).astype(str)
+    return _Table(source, frame, np.arange(2, len(frame) + 2), False, ",",
+                  row_names=tuple(frame.iloc[:, 0]))
 
 
 _SEPARATOR_NAMES = {",": "','", ";": "';'", "\t": "tabs"}

@@ -21,8 +21,14 @@ from planner.scenario.reader import (MAX_ROWS_PER_CHECK, _Table, _check_duplicat
 
 
 def _read_depots(root: Path, notices: list[str]) -> pd.DataFrame:
-    file = "depots.csv"
-    table = _read_csv(root, file, ["depot", "max_visits_per_day"], list(WEEKDAYS), notices)
+    table = _read_csv(root, "depots.csv", ["depot", "max_visits_per_day"], list(WEEKDAYS),
+                      notices)
+    return depots_from(table)
+
+
+def depots_from(table: _Table) -> pd.DataFrame:
+    """depots.csv's checks on a table of text cells (the file's, or one with changed cells):
+    index ``depot``, one column of visits per day for each weekday."""
     problems = list(table.problems)
     frame = table.frame
     names = _text_ids(table, "depot", "depot name", "depot", problems)
@@ -50,11 +56,20 @@ def _crews(table: _Table, col: str, problems: list[Problem], empty_ok: bool) -> 
     return values
 
 
+TERMINAL_REQUIRED = ["terminal_id", "depot", "capacity", "insurance_limit", "bundle",
+                     "balance_now", "visit_days"]
+TERMINAL_OPTIONAL = ["site", "visit_fee"]
+
+
 def _read_terminals(root: Path, depots: pd.DataFrame, notices: list[str]) -> pd.DataFrame:
-    file = "terminals.csv"
-    required = ["terminal_id", "depot", "capacity", "insurance_limit", "bundle", "balance_now",
-                "visit_days"]
-    table = _read_csv(root, file, required, ["site", "visit_fee"], notices)
+    table = _read_csv(root, "terminals.csv", TERMINAL_REQUIRED, TERMINAL_OPTIONAL, notices)
+    return terminals_from(table, depots, notices)
+
+
+def terminals_from(table: _Table, depots: pd.DataFrame, notices: list[str]) -> pd.DataFrame:
+    """terminals.csv's checks on a table of text cells (the file's, or one with changed
+    cells), against the depots: the terminal frame of :class:`~planner.scenario.Scenario`."""
+    file = table.file
     frame = table.frame
     problems = list(table.problems)
     ids = _text_ids(table, "terminal_id", "terminal_id", "terminal", problems)
@@ -281,3 +296,30 @@ def read_past_visits(path: str | Path, terminals: pd.DataFrame) -> pd.DataFrame:
     out = pd.DataFrame({"terminal_id": table.frame["terminal_id"], "date": dates,
                         "load": load})
     return out.sort_values(["terminal_id", "date"], ignore_index=True, kind="stable")
+
+
+def _cell(value) -> str:
+    """A value as the text a CSV cell would hold (empty for a missing number)."""
+    if isinstance(value, float):
+        if np.isnan(value):
+            return ""
+        return str(int(value)) if value.is_integer() else repr(value)
+    return str(value)
+
+
+def terminal_cells(terminals: pd.DataFrame) -> pd.DataFrame:
+    """The terminal frame of a scenario back as text cells with terminals.csv's columns."""
+    out = pd.DataFrame({"terminal_id": terminals.index.astype(str)})
+    for col in TERMINAL_REQUIRED[1:] + TERMINAL_OPTIONAL:
+        out[col] = [_cell(v) for v in terminals[col]]
+    return out
+
+
+def depot_cells(depots: pd.DataFrame) -> pd.DataFrame:
+    """The depot frame of a scenario back as text cells with depots.csv's columns."""
+    out = pd.DataFrame({"depot": depots.index.astype(str),
+                        "max_visits_per_day": [str(int(v)) for v in depots[list(WEEKDAYS)]
+                                               .max(axis=1)]})
+    for day in WEEKDAYS:
+        out[day] = [str(int(v)) for v in depots[day]]
+    return out
