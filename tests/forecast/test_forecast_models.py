@@ -1,7 +1,7 @@
 """Tests of the candidate demand models (planner.forecast.models).
 
-Outside references: Durbin & Koopman (2001) for the Nile local level model; statsmodels as the
-reference implementation of Holt-Winters and of regression with ARIMA errors (SARIMAX). For
+Outside references: statsmodels as the reference implementation of Holt-Winters and of
+regression with ARIMA errors (SARIMAX). For
 daily series with weekly seasonality no published fitted figure exists, so those models are
 checked on simulated series of a known process (known answer by construction).
 """
