@@ -13,8 +13,9 @@ class Problem:
     """One thing wrong with the input, located as precisely as we can.
 
     ``line`` is the line number in the file as a text editor shows it (the CSV header is line 1),
-    or ``None`` when the problem concerns the whole file. ``column`` is the CSV column or, in a
-    TOML file, the dotted name of the setting (``planning.horizon_days``).
+    or ``None`` when the problem concerns the whole file; ``row`` instead counts the data rows of
+    a file without lines (Parquet), from 1. ``column`` is the CSV column or, in a TOML file, the
+    dotted name of the setting (``planning.horizon_days``).
     """
 
     file: str
@@ -22,11 +23,14 @@ class Problem:
     fix: str
     line: int | None = None
     column: str | None = None
+    row: int | None = None
 
     def __str__(self) -> str:
         where = self.file
         if self.line is not None:
             where += f", line {self.line}"
+        if self.row is not None:
+            where += f", row {self.row}"
         if self.column is not None:
             kind = "setting" if self.file.endswith(".toml") else "column"
             where += f", {kind} '{self.column}'"

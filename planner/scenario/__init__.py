@@ -142,7 +142,7 @@ def _history_warnings(history: pd.DataFrame, terminals: pd.DataFrame, start: pd.
 def _fingerprint(root: Path) -> str:
     h = hashlib.sha256()
     for name in (SETTINGS_FILE, "terminals.csv", "depots.csv", "dispense.csv",
-                 "committed.csv"):
+                 "dispense.parquet", "committed.csv"):
         p = root / name
         if p.is_file():
             h.update(name.encode())

@@ -113,9 +113,14 @@ class _Table:
     separator: str
     problems: tuple[Problem, ...] = ()
     row_names: tuple[str, ...] | None = None   # rows named, not numbered (a changed table)
+    unit: str = "line"    # "line" as an editor shows it, or "row" (Parquet: data rows from 1)
 
     def line(self, i: int) -> int:
         return int(self.lines[i])
+
+    def place(self, i: int) -> dict[str, int]:
+        """Where row ``i`` is, as :class:`~planner.errors.Problem` keywords."""
+        return {self.unit: self.line(i)}
 
     def flag(self, problems: list[Problem], mask: Any, column: str | None,
              problem: Callable[[int], str] | str, fix: Callable[[int], str] | str) -> None:
@@ -126,12 +131,12 @@ class _Table:
             named = self.row_names is not None
             problems.append(Problem(
                 self.file, f"{self.row_names[i]}: {text}" if named else text,
-                fix(i) if callable(fix) else fix, line=None if named else self.line(i),
-                column=column))
+                fix(i) if callable(fix) else fix, column=column,
+                **({} if named else self.place(i))))
         if len(rows) > MAX_ROWS_PER_CHECK:
             more = rows[MAX_ROWS_PER_CHECK:]
             where = "" if self.row_names is not None else \
-                f" (lines {self.line(more[0])}–{self.line(more[-1])})"
+                f" ({self.unit}s {self.line(more[0])}–{self.line(more[-1])})"
             problems.append(Problem(
                 self.file, f"and {len(more)} more row(s) like these{where}",
                 "fix them the same way", column=column))
@@ -420,7 +425,7 @@ def _dates(table: _Table, col: str, problems: list[Problem], notices: list[str])
             table.file, f"{int(slashed.sum())} dates are written with slashes, like "
                         f"{_show(example)}: day/month or month/day cannot be told apart",
             f"write dates as YYYY-MM-DD (e.g. {guess}); a spreadsheet can export them so "
-            "with the cell format YYYY-MM-DD", line=table.line(i), column=col))
+            "with the cell format YYYY-MM-DD", column=col, **table.place(i)))
         bad = bad & ~slashed
     table.flag(problems, bad, col,
                lambda i: f"date {_show(cells.iloc[i])} does not parse or does not exist",
@@ -448,7 +453,7 @@ def _text_ids(table: _Table, col: str, what: str, item: str,
     first = ids.drop_duplicates(keep="first")
     first_line = pd.Series(table.lines[first.index], index=first.to_numpy())
     table.flag(problems, dup, col,
-               lambda i: f"{what} {_show(ids.iloc[i])} appears twice (first on line "
+               lambda i: f"{what} {_show(ids.iloc[i])} appears twice (first on {table.unit} "
                          f"{first_line[ids.iloc[i]]})", f"keep one row per {item}")
     return ids
 
@@ -467,13 +472,14 @@ def _check_known(table: _Table, col: str, known: pd.Index, other_file: str, what
                                                 f"{what}(s)", "fix them the same way",
                                     column=col))
             break
-        more = f" ({len(at)} rows, lines {table.line(at.iloc[0])}–{table.line(at.iloc[-1])})" \
+        more = (f" ({len(at)} rows, {table.unit}s {table.line(at.iloc[0])}–"
+                f"{table.line(at.iloc[-1])})") \
             if len(at) > 1 else ""
         problems.append(Problem(table.file, f"{what} {_show(value)} is not in {other_file}"
                                             f"{more}",
                                 f"add it to {other_file} or correct the name"
                                 + _did_you_mean(value, list(known)),
-                                line=table.line(at.iloc[0]), column=col))
+                                column=col, **table.place(at.iloc[0])))
     return unknown
 
 
@@ -487,7 +493,7 @@ def _check_duplicate_days(table: _Table, dates: pd.Series, problems: list[Proble
     _, first_row = np.unique(codes, return_index=True)
     table.flag(problems, dup, "date",
                lambda i: f"terminal {_show(key['t'].iloc[i])} has a second row for "
-                         f"{key['d'].iloc[i]:%Y-%m-%d} (first on line "
+                         f"{key['d'].iloc[i]:%Y-%m-%d} (first on {table.unit} "
                          f"{table.line(first_row[codes[i]])})",
                "keep one row per terminal and date (add the amounts if both are real)")
 
@@ -510,3 +516,45 @@ def _parse_weekdays(text: str) -> tuple[tuple[bool, ...], list[str]]:
     days = {_WEEKDAY_NAMES.get(p.lower()) for p in parts}
     bad = [p for p in parts if p.lower() not in _WEEKDAY_NAMES]
     return tuple(d in days for d in range(7)), bad
+
+
+def _read_parquet(root: Path, file: str, required: list[str], optional: list[str],
+                  notices: list[str]) -> _Table:
+    """Read a Parquet file (pyarrow) as the same table of text cells as a CSV file, so that it
+    passes the same checks; problems count data rows from 1 instead of lines. Dates may be
+    Parquet dates, timestamps at midnight or ``YYYY-MM-DD`` text; numbers any numeric type."""
+    import pyarrow as pa
+    import pyarrow.compute as pc
+    import pyarrow.parquet as pq
+
+    path = root / file
+    try:
+        schema = pq.read_schema(path)
+    except (OSError, pa.ArrowInvalid) as exc:
+        raise InputError(Problem(file, f"the file is not readable Parquet: {exc}",
+                                 "write it again with a Parquet writer (e.g. pandas' "
+                                 "DataFrame.to_parquet), or give dispense.csv instead")) from None
+    names = [str(n).strip() for n in schema.names]
+    missing = [c for c in required if c not in names]
+    if missing:
+        raise InputError([Problem(file, f"required column '{c}' is missing",
+                                  f"add a column '{c}'", column=c) for c in missing])
+    extra = [c for c in names if c not in required + optional]
+    if extra:
+        notices.append(f"{file}: extra column(s) {', '.join(extra)} ignored")
+    wanted = [c for c in required + optional if c in names]
+    data = pq.read_table(path, columns=[schema.names[names.index(c)] for c in wanted])
+    columns = {}
+    for name, column in zip(wanted, data.columns):
+        kind = column.type
+        if pa.types.is_timestamp(kind):      # a time of day other than midnight is no date
+            midnight = pc.equal(column, pc.floor_temporal(column, unit="day"))
+            day = pc.cast(pc.cast(column, pa.timestamp("s")), pa.date32())
+            text = pc.if_else(midnight, pc.cast(day, pa.string()), pc.cast(column, pa.string()))
+        elif pa.types.is_date(kind) or pa.types.is_integer(kind) or pa.types.is_floating(kind):
+            text = pc.cast(column, pa.string())          # ISO dates, plain numbers
+        else:
+            text = pc.utf8_trim_whitespace(pc.cast(column, pa.string()))
+        columns[name] = pc.fill_null(text, "").to_pandas()
+    frame = pd.DataFrame(columns)
+    return _Table(file, frame, np.arange(1, len(frame) + 1), False, ",", unit="row")

@@ -11,9 +11,10 @@ import pandas as pd
 
 from planner.errors import InputError, Problem
 from planner.scenario.model import DATE_UNIT, MAX_BUNDLES_PER_LOAD, MAX_CREWS, STATUSES, WEEKDAYS
-from planner.scenario.reader import (MAX_ROWS_PER_CHECK, _Table, _check_duplicate_days,
-                                     _check_known, _dates, _did_you_mean, _numbers, _parse_weekdays,
-                                     _raise_if, _read_csv, _show, _text_ids, _weekday_hint)
+from planner.scenario.reader import (MAX_ROWS_PER_CHECK, _check_duplicate_days, _check_known,
+                                     _dates, _did_you_mean, _numbers, _parse_weekdays,
+                                     _raise_if, _read_csv, _read_parquet, _show, _Table,
+                                     _text_ids, _weekday_hint)
 
 # --------------------------------------------------------------------------------------------
 # The CSV files
@@ -139,10 +140,22 @@ def terminals_from(table: _Table, depots: pd.DataFrame, notices: list[str]) -> p
     return out.astype({"depot": "str", "visit_days": "str", "site": "str"})
 
 
+DISPENSE_COLUMNS = ["terminal_id", "date", "amount", "status"]
+
+
 def _read_dispense(root: Path, terminals: pd.DataFrame, notices: list[str]) -> pd.DataFrame:
-    """All dispense rows (history and any dated on or after the first planning day)."""
+    """All dispense rows (history and any dated on or after the first planning day), from
+    dispense.csv or, for large networks, dispense.parquet (the same checks)."""
     file = "dispense.csv"
-    table = _read_csv(root, file, ["terminal_id", "date", "amount", "status"], [], notices)
+    if (root / "dispense.parquet").is_file():
+        if (root / file).exists():
+            raise InputError(Problem("dispense.parquet", "the folder holds both dispense.csv "
+                                                         "and dispense.parquet",
+                                     "keep one of them (the same history in either format)"))
+        file = "dispense.parquet"
+        table = _read_parquet(root, file, DISPENSE_COLUMNS, [], notices)
+    else:
+        table = _read_csv(root, file, DISPENSE_COLUMNS, [], notices)
     frame = table.frame
     problems = list(table.problems)
     table.flag(problems, frame["terminal_id"] == "", "terminal_id", "terminal_id is empty",
