@@ -15,6 +15,7 @@ from __future__ import annotations
 import warnings
 from collections.abc import Mapping
 from dataclasses import dataclass, field
+from typing import Any
 from pathlib import Path
 
 import numpy as np
@@ -23,6 +24,7 @@ from scipy import integrate, optimize, signal, stats
 
 from planner.calendar import calendar_features
 from planner.cleaning import CleanHistory
+from planner.executor import Executor, LocalExecutor, task_chunks
 from planner.runfolder import write_private_file
 from planner.scenario import Scenario
 
@@ -404,7 +406,8 @@ def profile_residuals(demand: pd.Series,
 def diagnose_scenario(scenario: Scenario, clean: CleanHistory,
                       residuals_by_terminal: Mapping | None = None,
                       terminal_ids: list[str] | tuple[str, ...] | None = None,
-                      out_dir: str | Path | None = None) -> dict[str, Diagnostics]:
+                      out_dir: str | Path | None = None,
+                      executor: Executor | None = None) -> dict[str, Diagnostics]:
     """Diagnose the cleaned demand of each terminal (all with history by default).
 
     ``residuals_by_terminal`` maps terminal id to a model's residuals (array or Series; NaN
@@ -413,7 +416,8 @@ def diagnose_scenario(scenario: Scenario, clean: CleanHistory,
     terminal_id, on, test, statistic, p_value, verdict; ``on`` says whether the test concerns
     the ``series``, the ``model residuals`` or the ``profile residuals``) and one PNG page
     ``diagnostics_<terminal>.png`` per terminal (:mod:`planner.report.diagnostic_charts`),
-    all readable by the owner only.
+    all readable by the owner only. The terminals are diagnosed on ``executor`` (in chunks;
+    default this process); the pages are drawn here.
     """
     if out_dir is not None:
         from planner.report.diagnostic_charts import diagnostics_page
@@ -423,34 +427,57 @@ def diagnose_scenario(scenario: Scenario, clean: CleanHistory,
     if len(daily):
         days = pd.date_range(daily["date"].min(), daily["date"].max(), freq="D")
         features = calendar_features(days, scenario.calendar)
+    frames = {tid: clean.frame(tid) for tid in ids}
+    tasks = [_DiagnosisTask(tid, f["demand"], residuals_by_terminal.get(tid),
+                            features.reindex(f["demand"].index) if len(daily) else None)
+             for tid, f in frames.items() if not f.empty]
+    runner = executor if executor is not None else LocalExecutor(1)
+    chunks = task_chunks(tasks, runner.workers)
+    done = [r for chunk in runner.map(_diagnose_chunk, chunks, weights=[len(c) for c in chunks])
+            for r in chunk]
     results: dict[str, Diagnostics] = {}
     tables = []
-    for tid in ids:
-        frame = clean.frame(tid)
-        if frame.empty:
-            continue
-        demand = frame["demand"]
-        given = residuals_by_terminal.get(tid)
-        if given is not None:
-            diag = diagnose_series(demand.to_numpy(), np.asarray(given, dtype=float))
-            source = "model residuals"
-        else:
-            resid, X = profile_residuals(demand, features)
-            diag = diagnose_series(demand.to_numpy(), resid, design=X)
-            source = "profile residuals"
+    for task, (diag, source) in zip(tasks, done):
+        tid = task.terminal_id
         results[tid] = diag
         t = diag.table()
         t["on"] = t["on"].replace({"residuals": source})
         t.insert(0, "terminal_id", tid)
         tables.append(t)
         if out_dir is not None:
-            diagnostics_page(tid, frame, diag, Path(out_dir) / f"diagnostics_{_safe(tid)}.png")
+            diagnostics_page(tid, frames[tid], diag,
+                             Path(out_dir) / f"diagnostics_{_safe(tid)}.png")
     if out_dir is not None:
         tidy = (pd.concat(tables, ignore_index=True) if tables
                 else pd.DataFrame(columns=_TIDY_COLUMNS))
         write_private_file(Path(out_dir) / "diagnostics.csv",
                        tidy[_TIDY_COLUMNS].to_csv(index=False).encode("utf-8"))
     return results
+
+
+@dataclass(frozen=True)
+class _DiagnosisTask:
+    """One terminal's diagnosis (the executor's unit of work, in chunks)."""
+
+    terminal_id: str
+    demand: pd.Series               # cleaned demand by date
+    residuals: Any                  # a model's residuals, or None: the profile's
+    features: pd.DataFrame | None   # calendar features on the demand's dates
+
+
+def _diagnose_chunk(chunk: list[_DiagnosisTask]) -> list[tuple[Diagnostics, str]]:
+    """``(diagnostics, what the residual tests ran on)`` of every task of a chunk."""
+    out = []
+    for task in chunk:
+        if task.residuals is not None:
+            diag = diagnose_series(task.demand.to_numpy(),
+                                   np.asarray(task.residuals, dtype=float))
+            out.append((diag, "model residuals"))
+        else:
+            resid, X = profile_residuals(task.demand, task.features)
+            out.append((diagnose_series(task.demand.to_numpy(), resid, design=X),
+                        "profile residuals"))
+    return out
 
 
 def _safe(terminal_id: str) -> str:

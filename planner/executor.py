@@ -58,6 +58,16 @@ def _report(progress: Progress | None, done: int, total: int) -> None:
         progress(done, total)
 
 
+def task_chunks(tasks: list, workers: int, per_worker: int = 4) -> list[list]:
+    """``tasks`` in consecutive chunks: one task each in this process (progress after every
+    terminal), else about ``per_worker`` chunks per worker, so that many small tasks cost few
+    hand-overs to the workers."""
+    if workers <= 1:
+        return [[task] for task in tasks]
+    size = max(1, -(-len(tasks) // (per_worker * workers)))
+    return [list(tasks[i:i + size]) for i in range(0, len(tasks), size)]
+
+
 class LocalExecutor:
     """Tasks in this process (``workers = 1``) or in local worker processes.
 

@@ -297,7 +297,8 @@ def _plan_scenario(source: str | Path | Scenario, options: PlanOptions, progress
         progress("diagnose", 0, 1)
         diagnostics = diagnose_scenario(scenario, clean,
                                         residuals_by_terminal=getattr(forecast, "residuals",
-                                                                      None))
+                                                                      None),
+                                        executor=executor)
         progress("diagnose", 1, 1)
     backtest = comparison = None
     if options.backtest_weeks > 0:
@@ -669,8 +670,9 @@ def _diagnose_into(writer, source, terminal_ids, options):
                                      path_count=min(scenario.path_count, 100),
                                      seed=scenario.seed, executor=executor,
                                      origins=options.origins)
-    residuals = getattr(forecast, "residuals", None)
-    diagnose_scenario(scenario, clean, residuals_by_terminal=residuals, out_dir=writer.staging)
+        diagnose_scenario(scenario, clean, residuals_by_terminal=getattr(forecast, "residuals",
+                                                                         None),
+                          out_dir=writer.staging, executor=executor)
     return scenario, pd.read_csv(writer.staging / "diagnostics.csv")
 
 

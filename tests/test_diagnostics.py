@@ -357,3 +357,18 @@ def test_diagnose_scenario_without_output() -> None:
     assert list(results) == ["BRH-001", "BRH-002", "BRH-003"]
     table = results["BRH-003"].table()
     assert table["p_value"].dropna().between(0, 1).all()
+
+
+def test_diagnostics_on_worker_processes_equal_those_made_here():
+    # the terminals are diagnosed on the run's executor, in chunks; the answer is the same
+    from conftest import TINY
+    from planner.executor import LocalExecutor
+
+    scenario = load_scenario(TINY)
+    clean = clean_history(scenario)
+    here = diagnose_scenario(scenario, clean)
+    with LocalExecutor(2) as pool:
+        there = diagnose_scenario(scenario, clean, executor=pool)
+    assert list(there) == list(here) and len(here) == len(scenario.terminals)
+    for tid in here:
+        pd.testing.assert_frame_equal(there[tid].table(), here[tid].table())

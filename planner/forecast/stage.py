@@ -37,7 +37,7 @@ import pandas as pd
 
 from planner.calendar import FEATURE_COLUMNS, calendar_features
 from planner.errors import InputError, Problem
-from planner.executor import Executor, LocalExecutor
+from planner.executor import Executor, LocalExecutor, task_chunks
 from planner.forecast.scoring import (backtest_model, champion_reason, fit_network_spread,
                                        origin_days, rank_models, spread_by_day, widen)
 from planner.forecast.models import CANDIDATES, LEVELS, DemandModel, ModelFitError
@@ -313,16 +313,6 @@ def forecast_terminal(task: TerminalTask) -> TerminalForecast:
 def forecast_terminals(tasks: list[TerminalTask]) -> list[TerminalForecast]:
     """:func:`forecast_terminal` of every task of one chunk (the executor's unit of work)."""
     return [forecast_terminal(task) for task in tasks]
-
-
-def task_chunks(tasks: list, workers: int, per_worker: int = 4) -> list[list]:
-    """``tasks`` in consecutive chunks: one task each in this process (progress after every
-    terminal), else about ``per_worker`` chunks per worker, so that many small tasks cost few
-    hand-overs to the workers."""
-    if workers <= 1:
-        return [[task] for task in tasks]
-    size = max(1, -(-len(tasks) // (per_worker * workers)))
-    return [list(tasks[i:i + size]) for i in range(0, len(tasks), size)]
 
 
 def calibrated(result: TerminalForecast, factors: np.ndarray) -> TerminalForecast:
