@@ -23,12 +23,12 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from planner.costs import REDUCE_BLOCK, cycle_dry_counts, simulate
+from planner.costs import PERIODS, REDUCE_BLOCK, cycle_dry_counts, simulate
 from planner.optimize.problem import (WEEKDAY_NAMES, PlanningProblem, PlanResult,
                                       next_visits, target_dry_paths)
 
 LOAD_STOPS = ("committed", "limit", "target", "cost", "solver", "empty")
-PERIOD_NAMES = ("horizon", "look_ahead", "none")   # where the next visit lies (as costs.csv)
+PERIOD_NAMES = (*PERIODS, "none")   # where the next visit lies: a period of costs.csv, or none
 MAX_RUNS = 4      # closed spells named one by one; more are counted by cause
 BY_COUNT = {"a lock day": "locked", "not a visit day": "outside the visit days",
             "no visit allowed": "closed"}   # others: "with " + cause
@@ -119,7 +119,8 @@ def plan_frame(problem: PlanningProblem, result: PlanResult) -> pd.DataFrame:
     rows = []
     for i, (t, d) in enumerate(zip(terminals, days)):
         e = int(ends[i])
-        where = "horizon" if e < horizon else ("look_ahead" if e < d_count else "none")
+        in_horizon, in_look_ahead, nowhere = PERIOD_NAMES
+        where = in_horizon if e < horizon else (in_look_ahead if e < d_count else nowhere)
         facts = _Facts(problem, int(t), int(d), e, where, str(stop[i]), float(load[i]),
                        float(extra[i]), int(allowance[i]), float(share[i]),
                        int(full_dry[i]), used)

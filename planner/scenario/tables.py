@@ -330,6 +330,8 @@ def terminal_cells(terminals: pd.DataFrame) -> pd.DataFrame:
 
 def depot_cells(depots: pd.DataFrame) -> pd.DataFrame:
     """The depot frame of a scenario back as text cells with depots.csv's columns."""
+    # every weekday has its own cell, so max_visits_per_day (the fallback of an empty weekday
+    # cell) only has to be a valid number: the most of any day
     out = pd.DataFrame({"depot": depots.index.astype(str),
                         "max_visits_per_day": [str(int(v)) for v in depots[list(WEEKDAYS)]
                                                .max(axis=1)]})
