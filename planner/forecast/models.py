@@ -30,18 +30,18 @@ The three candidates (:data:`CANDIDATES`, also the models the stage can be given
 - :class:`SeasonalNaive` — weekly seasonal naive; band and paths from its own historical
   forecast errors (every past 14-day window is one joint error vector).
 - :class:`HoltWinters` — exponential smoothing with additive weekly seasonality on log1p
-  demand, ETS(A,N,A). Parameters by least squares (as statsmodels' ``ExponentialSmoothing``)
-  with the seven initial values concentrated out exactly; ``method="statsmodels"`` fits with
-  statsmodels instead.
+  demand, ETS(A,N,A), fitted by statsmodels' ``ExponentialSmoothing`` (least squares); the
+  fitted model is then carried in the shared ARMA form below.
 - :class:`RegressionARIMA` — regression of log1p demand on weekday dummies and the calendar
   features with ARIMA(p,d,q) errors, the order chosen by AIC on a small grid. Default
   ``method="css"``: conditional sum of squares (feasible GLS: OLS, ARMA on the residuals,
   GLS re-estimate of the regression, twice); ``method="mle"``: exact maximum likelihood with
   statsmodels ``SARIMAX``.
 
-The fast defaults exist because the whole forecasting stage of a terminal (cleaning, backtest
-of every candidate, 500 paths) must take no more than three plain statsmodels Holt-Winters fits;
-the tests check them against statsmodels as the reference implementation.
+The regression's fast default exists because the whole forecasting stage of a terminal
+(cleaning, backtest of every candidate, 500 paths) must take no more than three plain
+statsmodels Holt-Winters fits (``bench/bench_forecast.py``); the tests check it against
+statsmodels as the reference implementation.
 
 The linear log models (Holt-Winters, regression with ARIMA errors) share one representation:
 log demand ``z_t = shift_t + w_t`` with ``Φ(B) w_t = θ(B) e_t``, ``e_t ~ N(0, σ²)``, where
@@ -57,7 +57,7 @@ import warnings
 from typing import Any, ClassVar
 
 import numpy as np
-from scipy import linalg, optimize, signal, special
+from scipy import linalg, signal, special
 
 LEVELS = (0.05, 0.1, 0.5, 0.9, 0.95)
 WEEK = 7
@@ -421,37 +421,49 @@ def _hw_sse(params: np.ndarray, z: np.ndarray, m: int) -> float:
     return value if math.isfinite(value) else 1e300
 
 
+def hw_start(z: np.ndarray, alpha_gamma: tuple[float, float] | None = None,
+             m: int = WEEK) -> np.ndarray:
+    """Start values for statsmodels' ``ExponentialSmoothing`` fit, in its order
+    ``[α, γ, l0, s0 … s_{m-1}]``.
+
+    α and γ are the best of a coarse grid (the least-squares surface can have a shallow second
+    valley) unless given; the initial level and seasons are then least-squares optimal for
+    them (:func:`hw_errors`). This replaces statsmodels' own brute-force search for a start,
+    which takes about as long as the fit itself.
+    """
+    if alpha_gamma is None:
+        grid = [(a, g) for a in (0.05, 0.2, 0.5) for g in (0.05, 0.3)]
+        a, g = min(grid, key=lambda p: _hw_sse(np.array(p), z, m))
+        alpha_gamma = (a, g * (1.0 - a))
+    alpha, gamma = alpha_gamma
+    _, c = hw_errors(z, alpha, gamma, m)
+    level = float(c.mean())
+    return np.r_[alpha, gamma, level, c - level]
+
+
 class HoltWinters(_LogLinearModel):
     """Holt-Winters exponential smoothing with additive weekly seasonality on log1p demand,
     ETS(A,N,A) (no trend: cash demand drifts, it rarely trends for weeks on end).
 
-    Least squares over ``0 ≤ α ≤ 1``, ``0 ≤ γ ≤ 1 − α`` (the bounds of statsmodels'
-    ``ExponentialSmoothing``) with the seven initial values concentrated out. σ² = SSE/(n − 9).
-    ``offset_column``: an exog column that is a known log lift (``event_log_lift``), removed
-    before smoothing and added back to the forecast.
-    ``method="statsmodels"`` estimates α, γ and the initial states with statsmodels'
-    ``ExponentialSmoothing(..., seasonal="add", seasonal_periods=7)`` instead.
+    α and γ are estimated by statsmodels' ``ExponentialSmoothing(z, seasonal="add",
+    seasonal_periods=7)`` (least squares within its bounds ``0 ≤ α ≤ 1``, ``0 ≤ γ ≤ 1 − α``),
+    started from :func:`hw_start`. The seven initial values are then the least-squares optimum
+    for those α and γ (:func:`hw_errors`; never worse than statsmodels' own), and
+    σ² = SSE/(n − 9). ``offset_column``: an exog column that is a known log lift
+    (``event_log_lift``), removed before smoothing and added back to the forecast.
     """
 
     name = "holt_winters"
 
-    def __init__(self, *, offset_column: int | None = None, method: str = "concentrated",
-                 min_days: int = 28):
+    def __init__(self, *, offset_column: int | None = None, min_days: int = 28):
         self.offset_column = offset_column
-        self.method = method
         self.min_days = min_days
 
     def fit(self, y: np.ndarray, exog: np.ndarray | None = None) -> "HoltWinters":
         y = np.asarray(y, dtype=float)
         _check_length(y, max(self.min_days, 3 * WEEK), self.name)
         z = np.log1p(y) - _offset(exog, self.offset_column, len(y))
-        if self.method == "statsmodels":
-            alpha, gamma = self._fit_statsmodels(z)
-        elif self.method == "concentrated":
-            alpha, gamma = self._fit_concentrated(z, getattr(self, "_start", None))
-        else:
-            raise ValueError(f"method must be 'concentrated' or 'statsmodels', got "
-                             f"{self.method!r}")
+        alpha, gamma = self._fit_statsmodels(z, hw_start(z, getattr(self, "_start", None)))
         e, c = hw_errors(z, alpha, gamma)
         sse = float(e @ e)
         if not math.isfinite(sse):
@@ -465,36 +477,25 @@ class HoltWinters(_LogLinearModel):
     def refit(self, y: np.ndarray, exog: np.ndarray | None = None) -> "HoltWinters":
         """Fit again on ``y``, starting from the current smoothing parameters."""
         new = self.clone()
-        new._start = (self.alpha_, self.gamma_ / (1.0 - self.alpha_) if self.alpha_ < 1 else 0.0)
+        new._start = (self.alpha_, self.gamma_)
         return new.fit(y, exog)
 
     @staticmethod
-    def _fit_concentrated(z: np.ndarray, start: tuple[float, float] | None = None
-                          ) -> tuple[float, float]:
-        if start is None:
-            # a coarse grid first: the least-squares surface can have a shallow second valley
-            grid = [(a, g) for a in (0.05, 0.2, 0.5) for g in (0.05, 0.3)]
-            start = min(grid, key=lambda p: _hw_sse(np.array(p), z, WEEK))
-        # SLSQP: few evaluations, and no BLAS-heavy inner loop (L-BFGS-B's is slow for
-        # tiny problems when BLAS runs threaded)
-        res = optimize.minimize(_hw_sse, np.array(start), args=(z, WEEK), method="SLSQP",
-                                bounds=[(0.0, 1.0), (0.0, 1.0)],
-                                options={"ftol": 1e-12, "maxiter": 200})
-        if not np.all(np.isfinite(res.x)):
-            raise ModelFitError("holt_winters: the least-squares fit did not converge")
-        alpha, g = (float(v) for v in np.clip(res.x, 0.0, 1.0))
-        return alpha, g * (1.0 - alpha)
-
-    @staticmethod
-    def _fit_statsmodels(z: np.ndarray) -> tuple[float, float]:
+    def _fit_statsmodels(z: np.ndarray, start: np.ndarray) -> tuple[float, float]:
         from statsmodels.tsa.holtwinters import ExponentialSmoothing
 
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
-            res = ExponentialSmoothing(z, seasonal="add", seasonal_periods=WEEK).fit()
-        if not getattr(res.mle_retvals, "success", True):
+            try:
+                res = ExponentialSmoothing(z, seasonal="add", seasonal_periods=WEEK).fit(
+                    start_params=start, use_brute=False)
+            except (ValueError, np.linalg.LinAlgError) as exc:
+                raise ModelFitError(f"holt_winters: statsmodels' fit failed ({exc})") from exc
+        alpha = float(res.params["smoothing_level"])
+        gamma = float(res.params["smoothing_seasonal"])
+        if not (math.isfinite(alpha) and math.isfinite(gamma)):
             raise ModelFitError("holt_winters: statsmodels' fit did not converge")
-        return float(res.params["smoothing_level"]), float(res.params["smoothing_seasonal"])
+        return alpha, gamma
 
     def _set_state(self, z: np.ndarray, e: np.ndarray) -> None:
         self.ar_, self.ma_ = hw_polynomials(self.alpha_, self.gamma_)

@@ -68,7 +68,7 @@ def test_holt_winters_error_filter_equals_state_recursion():
     np.testing.assert_allclose(fast, _ets_recursion(z, 0.3, 0.15, initial), atol=1e-10)
 
 
-@pytest.mark.parametrize("seed", [1, 2])
+@pytest.mark.parametrize("seed", [1, 2, 5, 8])
 def test_holt_winters_matches_statsmodels_exponential_smoothing(seed):
     from statsmodels.tsa.holtwinters import ExponentialSmoothing
 
@@ -79,13 +79,12 @@ def test_holt_winters_matches_statsmodels_exponential_smoothing(seed):
         warnings.simplefilter("ignore")
         ref = ExponentialSmoothing(z, seasonal="add", seasonal_periods=7).fit()
     ours = HoltWinters().fit(y)
-    # statsmodels as reference: same least-squares problem, so the same optimum (ours
-    # concentrates the initial states out exactly, so it may only be lower)
+    # statsmodels' plain fit (its own brute-force start) as the reference: ours starts the same
+    # estimator elsewhere and then takes the least-squares initial states, so its SSE may only
+    # be lower, and the same optimum gives the same forecast
     assert ours.sse_ <= ref.sse * (1 + 1e-6)
     assert ours.sse_ == pytest.approx(ref.sse, rel=1e-4)
     np.testing.assert_allclose(np.log1p(ours.point(14)), ref.forecast(14), atol=2e-3)
-    via_statsmodels = HoltWinters(method="statsmodels").fit(y)
-    assert via_statsmodels.sse_ == pytest.approx(ours.sse_, rel=1e-4)
 
 
 def test_holt_winters_interval_follows_ets_variance_formula():
