@@ -159,3 +159,34 @@ def test_a_plan_on_a_dask_cluster_equals_the_plan_in_this_process(tiny_dir):
     assert here.objective == there.objective
     assert alone.plan.to_csv() == spread.plan.to_csv()
     assert np.array_equal(alone.forecast.paths, spread.forecast.paths)
+
+
+def test_a_whole_plan_completes_with_the_same_plan_when_workers_are_killed_mid_run(tiny_dir):
+    """A worker process is killed while the forecasts run on the cluster (at the first
+    finished terminal, the others still running), and another as the diagnostics start; the
+    scheduler re-runs their tasks on the restarted workers, and the plan, its forecast paths
+    and its evaluation are those of the run in this process."""
+    import signal
+
+    from planner.pipeline import plan_scenario
+
+    settings = dict(diagnose=True, calibrate=True, path_count=60)
+    alone = plan_scenario(tiny_dir, **settings)
+    kill_at = {"forecast": 1, "diagnose": 0}           # stage: tasks done when it is killed
+    killed: dict[str, int] = {}
+    with make_executor("dask", workers=2) as cluster:
+        client = cluster._client                      # the executor's own dask client
+
+        def kill_one(stage: str, done: int, total: int) -> None:
+            if stage in kill_at and stage not in killed and done >= kill_at[stage]:
+                pid = sorted(client.run(os.getpid).values())[0]
+                os.kill(pid, signal.SIGKILL)
+                killed[stage] = pid
+
+        spread = plan_scenario(tiny_dir, executor=cluster, progress=kill_one, **settings)
+        alive = set(client.run(os.getpid).values())
+    assert set(killed) == set(kill_at)                # both kills happened …
+    assert not alive & set(killed.values())           # … and both workers were replaced
+    assert alone.plan.to_csv() == spread.plan.to_csv()
+    assert np.array_equal(alone.forecast.paths, spread.forecast.paths)
+    assert alone.evaluation.to_csv() == spread.evaluation.to_csv()
