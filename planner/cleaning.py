@@ -23,7 +23,9 @@ Steps per terminal (README, "How a plan is made", step 2):
    Outliers*), ``M = 0.6745 · (r − median(r)) / MAD(r)``, with their published threshold
    ``|M| > 3.5``, on the calendar-adjusted log series, i.e. the residuals ``r = z - fitted``
    of the profile model. The scale is seasonal: median and MAD per weekday where the weekday
-   has at least ``_MIN_SCALE_DAYS`` exact days, else over all days. Fit and
+   has at least ``_MIN_SCALE_DAYS`` exact days, else over all days. The threshold is raised
+   for long series (Bonferroni over the days) and for the scale's own uncertainty (Student's
+   t with the MAD's effective degrees of freedom, :func:`z_limit`). Fit and
    flagging alternate until the flagged set no longer changes (at most five rounds), each fit
    leaving the flagged days out, so a gross error cannot hide itself by pulling the fit. Dry
    days can only be upper outliers (a low dry amount is expected: the machine was empty).
@@ -72,6 +74,7 @@ _Z_LIMIT = 3.5         # modified z-score threshold (Iglewicz & Hoaglin 1993)
 _Z_FACTOR = 0.6745     # the normal's 0.75 quantile: MAD / 0.6745 estimates σ
 _MIN_SCALE_DAYS = 20   # exact days a weekday needs for a scale of its own
 _SERIES_ALPHA = 0.05   # chance of a false flag in a genuine series (Bonferroni over its days)
+_MAD_EFFICIENCY = 0.37  # the MAD's asymptotic efficiency at the normal (Rousseeuw & Croux 1993)
 _MAX_ROUNDS = 5
 _PRIOR_SD = 0.25       # weekday prior: its sd in residual standard deviations (worth 16 days)
 _LEAN_DAYS = 8         # a weekday with fewer exact days leans on the network profile
@@ -361,9 +364,10 @@ def _profile(z: np.ndarray, censored: np.ndarray, usable: np.ndarray,
         means = np.array([profile[d] for _, d in prior], dtype=float)
         beta, s = _tobit(X[fit], z[fit], censored[fit], (columns, means))
         mu = X @ beta
-        score = modified_z(z - mu, usable & ~censored, dates.day_of_week.to_numpy())
+        score, scale_days = modified_z(z - mu, usable & ~censored,
+                                       dates.day_of_week.to_numpy())
         exact = usable & ~censored
-        limit = z_limit(int(usable.sum()))
+        limit = z_limit(int(usable.sum()), scale_days)
         new = (exact & (np.abs(score) > limit)) | (usable & censored & (score > limit))
         if np.array_equal(new, outlier):
             break
@@ -371,21 +375,39 @@ def _profile(z: np.ndarray, censored: np.ndarray, usable: np.ndarray,
     return mu, float(s), outlier
 
 
-def z_limit(days: int) -> float:
-    """The flagging threshold for a series of ``days`` days: Iglewicz & Hoaglin's 3.5, raised to
-    the Bonferroni bound ``Φ⁻¹(1 − α / (2 n))`` with ``α = _SERIES_ALPHA`` when the series is
-    long, so that a genuine series of any length gets a false flag with probability at most
-    about ``α`` (3.98 for two years of days)."""
-    return max(_Z_LIMIT, float(stats.norm.ppf(1.0 - _SERIES_ALPHA / (2.0 * max(days, 1)))))
+def z_limit(days: int, scale_days: np.ndarray | int | None = None) -> np.ndarray | float:
+    """The flagging threshold for a series of ``days`` days: Iglewicz & Hoaglin's 3.5, raised
+    for long series to the Bonferroni bound at ``1 − α / (2 n)`` with ``α = _SERIES_ALPHA``, so
+    that a genuine series of any length gets a false flag with probability at most about ``α``
+    (3.98 for two years of days under a known scale).
+
+    The scale is not known: it is the MAD of the ``scale_days`` exact days behind each day's
+    score (about a hundred per weekday in two years), and a MAD from ``n`` normal values is
+    as precise as a standard deviation from ``0.37 n`` (its asymptotic efficiency, Rousseeuw &
+    Croux 1993, *Alternatives to the Median Absolute Deviation*, JASA 88). The bound is
+    therefore Student's t quantile with ``0.37 n − 1`` degrees of freedom (at least one), as
+    for a studentised residual. Without ``scale_days`` the scale counts as known (the
+    normal's quantile). Returns one threshold per day when ``scale_days`` is an array."""
+    p = 1.0 - _SERIES_ALPHA / (2.0 * max(days, 1))
+    if scale_days is None:
+        return max(_Z_LIMIT, float(stats.norm.ppf(p)))
+    df = np.maximum(_MAD_EFFICIENCY * np.asarray(scale_days, float) - 1.0, 1.0)
+    limit = np.maximum(_Z_LIMIT, stats.t.ppf(p, df))
+    return limit if limit.ndim else float(limit)
 
 
-def modified_z(resid: np.ndarray, exact: np.ndarray, season: np.ndarray) -> np.ndarray:
+def modified_z(resid: np.ndarray, exact: np.ndarray,
+               season: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Modified z-scores ``0.6745 · (r − median) / MAD`` of every day's residual (Iglewicz &
     Hoaglin 1993), median and MAD taken over the ``exact`` days of the day's ``season`` (the
     weekday) when it has at least ``_MIN_SCALE_DAYS`` of them, else over all exact days. A
     zero MAD (more than half the residuals equal) falls back to the mean absolute deviation
-    times 1.2533 (their rule for that case)."""
+    times 1.2533 (their rule for that case).
+
+    Returns the scores and, per day, the number of exact days its median and MAD came from
+    (for :func:`z_limit`)."""
     score = np.zeros(len(resid))
+    behind = np.zeros(len(resid), dtype=int)
 
     def scale(values: np.ndarray) -> tuple[float, float]:
         centre = float(np.median(values))
@@ -395,13 +417,16 @@ def modified_z(resid: np.ndarray, exact: np.ndarray, season: np.ndarray) -> np.n
         mean_ad = float(np.mean(np.abs(values - centre)))
         return centre, max(mean_ad * 1.2533, 1e-12)
 
-    overall = scale(resid[exact]) if exact.any() else (0.0, 1.0)
+    n_exact = int(exact.sum())
+    overall = scale(resid[exact]) if n_exact else (0.0, 1.0)
     for s in np.unique(season):
         days = season == s
         own = exact & days
-        centre, spread = scale(resid[own]) if own.sum() >= _MIN_SCALE_DAYS else overall
+        n_own = int(own.sum())
+        centre, spread = scale(resid[own]) if n_own >= _MIN_SCALE_DAYS else overall
         score[days] = (resid[days] - centre) / spread
-    return score
+        behind[days] = n_own if n_own >= _MIN_SCALE_DAYS else n_exact
+    return score, behind
 
 
 def _reduced_design(dates: pd.DatetimeIndex, feats: pd.DataFrame, t: np.ndarray,

@@ -287,11 +287,13 @@ def test_modified_z_score_against_scipy():
     season = np.arange(400) % 7
     exact = np.ones(400, bool)
     # one season: the same as scipy's over all values
-    one = modified_z(x, exact, np.zeros(400, int))
+    one, behind = modified_z(x, exact, np.zeros(400, int))
+    assert (behind == 400).all()
     ref = (x - np.median(x)) / stats.median_abs_deviation(x, scale="normal")
     np.testing.assert_allclose(one, ref, rtol=1e-3)      # 0.6745 is Φ⁻¹(0.75) to 4 digits
     # per weekday: each day against its own weekday's median and MAD
-    per = modified_z(x, exact, season)
+    per, behind = modified_z(x, exact, season)
+    np.testing.assert_array_equal(behind, np.bincount(season)[season])
     for s in range(7):
         days = season == s
         own = (x[days] - np.median(x[days])) / stats.median_abs_deviation(x[days],
@@ -301,6 +303,30 @@ def test_modified_z_score_against_scipy():
     assert z_limit(30) == 3.5
     assert z_limit(730) == pytest.approx(stats.norm.ppf(1 - 0.05 / 1460))
     assert 3.9 < z_limit(730) < 4.1
+    # with the scale estimated from n days: Student's t at 0.37 n − 1 degrees of freedom
+    # (the MAD's efficiency at the normal, Rousseeuw & Croux 1993; scipy's t quantile)
+    limits = z_limit(730, np.array([104, 730]))
+    np.testing.assert_allclose(limits, stats.t.ppf(1 - 0.05 / 1460,
+                                                   [0.37 * 104 - 1, 0.37 * 730 - 1]))
+    assert z_limit(730) < limits[1] < limits[0] < 5.0
+    assert z_limit(30, 20) > 3.5
+
+
+def test_genuine_series_rarely_get_a_false_flag():
+    # by construction: 120 two-year series of lognormal demand with a weekday profile and no
+    # recording error; the threshold promises a false flag in at most about 5 % of them
+    dates, _ = true_demand(0, days=728)
+    rng = np.random.default_rng(11)
+    ids = [f"BRH-{k:03d}" for k in range(120)]
+    dow = dates.day_of_week.to_numpy()
+    rows = [frame(dates, np.round(8000.0 * WEEK[dow] * np.exp(rng.normal(0.0, 0.3, 728))),
+                  tid=tid) for tid in ids]
+    terminals = TINY.terminals.iloc[[0] * len(ids)].set_axis(
+        pd.Index(ids, name="terminal_id"))
+    scenario = dataclasses.replace(scenario_with(pd.concat(rows)), terminals=terminals)
+    daily = clean_history(scenario).daily
+    flagged = daily.loc[daily["flag"] == "outlier", "terminal_id"].nunique()
+    assert flagged <= 13        # 5 % of 120 is 6; 13 is its binomial 99.5 % quantile (scipy)
 
 
 NETWORK = ["BRH-001", "BRH-002", "BRH-003"]
