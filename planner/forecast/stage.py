@@ -355,10 +355,12 @@ def forecast_scenario(scenario, clean, *, horizon_days: int, path_count: int, se
     tail days); ``path_count`` demand paths per terminal from ``seed``; ``executor`` runs
     the terminals (:mod:`planner.executor`; default: here; identical results); ``origins`` weekly backtest
     origins; ``models`` the candidates (see :func:`candidate_models`); ``progress(done,
-    total)`` is called after each terminal. Returns a
+    total)`` is called once at the start (``done = 0``) and after each terminal. Returns a
     :class:`ForecastResult`. Raises :class:`~planner.errors.InputError` for an unknown model.
     """
     terminal_ids = tuple(scenario.terminal_ids)
+    if progress is not None:
+        progress(0, len(terminal_ids))
     dates = pd.date_range(scenario.start_date, periods=horizon_days, freq="D")
     offset_column = list(FEATURE_COLUMNS).index("event_log_lift")
     candidates = candidate_models(models, offset_column)
