@@ -824,26 +824,21 @@ class RegressionARIMA(_LogLinearModel):
                 "sigma": math.sqrt(sse / max(n_eff - k, 1)),
                 "aic": n_eff * math.log(sse / n_eff) + 2 * k}
 
-    def _fit_mle(self, z: np.ndarray, X: np.ndarray, order: tuple[int, int, int],
-                 start: dict[str, Any] | None = None) -> dict[str, Any]:
+    def _fit_mle(self, z: np.ndarray, X: np.ndarray,
+                 order: tuple[int, int, int]) -> dict[str, Any]:
         """Exact ML by SARIMAX (the variance concentrated out of the likelihood: the same
-        optimum, fewer parameters to search), from ``start`` (a fit of the same order) when
-        given."""
+        optimum, fewer parameters to search), from SARIMAX's own start."""
         from statsmodels.tsa.statespace.sarimax import SARIMAX
 
         p, d, q = order
         # the constant goes in as a regressor: SARIMAX's own trend="c" is the intercept of
         # the ARMA recursion, not the mean of the regression; with d = 1 it is not identified
         regressors = X if d == 0 else X[:, 1:]
-        first = None
-        if start is not None:
-            beta0 = np.asarray(start["beta"], float)[1:] if d else np.asarray(start["beta"])
-            first = np.concatenate([beta0, start["phi"], start["theta"]])
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
             model = SARIMAX(z, exog=regressors, order=order, trend="n",
                             concentrate_scale=True)
-            res = model.fit(disp=False, maxiter=200, start_params=first)
+            res = model.fit(disp=False, maxiter=200)
             if not res.mle_retvals.get("converged", True):
                 # a hard surface (a root near the circle): Nelder–Mead first, then the
                 # quasi-Newton polish from where it stopped
